@@ -1,0 +1,3 @@
+from kinset.cli import main
+
+raise SystemExit(main())

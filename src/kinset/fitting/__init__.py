@@ -1,0 +1,1 @@
+"""Fitting physical models to each device's data, vectorised across the reel."""

@@ -1,0 +1,1 @@
+"""Reading input files: units, tables, reel.yaml. Readers never fit."""

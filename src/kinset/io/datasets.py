@@ -1,0 +1,135 @@
+"""Readers for each dataset's CSV files: what columns each holds, in SI.
+
+Each reader returns one long table (one row per reading) with the columns named
+by quantity in SI (temperatures in kelvin) plus ``device``, ``source`` and ``line``.
+"""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from kinset.errors import InputError
+from kinset.io.tables import Spec, read_table, _body
+from kinset.io.units import split_column
+
+FORWARD_SWEEP = Spec(
+    quantities={"voltage": "voltage", "current": "current", "temperature": "temperature"},
+    required={"voltage", "current"},
+    text=("device",), integer=("position",),
+)
+FORWARD_SUPPLY = Spec(
+    quantities={"supply": "voltage", "resistance": "resistance", "voltage": "voltage",
+                "temperature": "temperature"},
+    required={"supply", "resistance", "voltage"},
+    text=("device",), integer=("position",),
+)
+LEAKAGE = Spec(
+    quantities={"reverse_voltage": "voltage", "reverse_current": "current",
+                "temperature": "temperature"},
+    required={"reverse_voltage", "reverse_current"},
+)
+CAPACITANCE = Spec(
+    quantities={"reverse_voltage": "voltage", "capacitance": "capacitance",
+                "frequency": "frequency", "temperature": "temperature"},
+    required={"reverse_voltage", "capacitance"},
+)
+CAPACITANCE_INDEX = Spec(
+    quantities={"reverse_voltage": "voltage", "temperature": "temperature"},
+    required={"reverse_voltage"},
+    text=("file", "device", "fixture"), required_text=("file", "device", "fixture"),
+)
+RECOVERY = Spec(
+    quantities={"time": "time", "current": "current", "forward_current": "current",
+                "reverse_current": "current"},
+    required={"time", "current"},
+)
+
+
+def _header_quantities(path: str) -> set[str]:
+    body, _ = _body(path)
+    header = pd.read_csv(io.StringIO(body.split("\n", 1)[0]), nrows=0, skipinitialspace=True)
+    out = set()
+    for col in header.columns:
+        parts = split_column(str(col))
+        if parts:
+            out.add(parts[0])
+    return out
+
+
+def read_forward(path: str | Path) -> pd.DataFrame:
+    """Read a forward V–I file in either form of the contract.
+
+    Sweep or points: ``device, voltage_V, current_A``. Supply and resistor readings:
+    ``device, supply_V, resistance_ohm, voltage_V``, where the current through the
+    diode is (supply − voltage) / resistance (Ohm's law on the series resistor).
+
+    Returns
+    -------
+    DataFrame
+        ``device, voltage [V], current [A], temperature [K] (NaN when not given),
+        position (NaN when not given), source, line``.
+    """
+    path = str(path)
+    present = _header_quantities(path)
+    if "current" in present or not {"supply", "resistance"} <= present:
+        frame = read_table(path, FORWARD_SWEEP)
+    else:
+        frame = read_table(path, FORWARD_SUPPLY)
+        r = frame["resistance"].to_numpy()
+        bad = r <= 0
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise InputError("series resistance must be positive", path,
+                             int(frame["line"].iloc[i]), "resistance")
+        frame["current"] = (frame["supply"] - frame["voltage"]) / r
+        frame = frame.drop(columns=["supply", "resistance"])
+    for col in ("temperature", "position"):
+        if col not in frame:
+            frame[col] = np.nan
+    return frame[["device", "voltage", "current", "temperature", "position", "source", "line"]]
+
+
+def read_leakage(path: str | Path) -> pd.DataFrame:
+    """Read a reverse-leakage sweep file (positive magnitudes)."""
+    frame = read_table(str(path), LEAKAGE)
+    if "temperature" not in frame:
+        frame["temperature"] = np.nan
+    return frame
+
+
+def read_capacitance(path: str | Path) -> pd.DataFrame:
+    """Read a C–V table file."""
+    frame = read_table(str(path), CAPACITANCE)
+    for col in ("temperature", "frequency"):
+        if col not in frame:
+            frame[col] = np.nan
+    return frame
+
+
+def read_capacitance_index(path: str | Path) -> pd.DataFrame:
+    """Read ``capacitance/index.csv``, the list of Touchstone files and their biases."""
+    frame = read_table(str(path), CAPACITANCE_INDEX)
+    if "temperature" not in frame:
+        frame["temperature"] = np.nan
+    return frame
+
+
+def read_recovery(path: str | Path) -> pd.DataFrame:
+    """Read a reverse-recovery waveform file (positive current = forward)."""
+    frame = read_table(str(path), RECOVERY)
+    for col in ("forward_current", "reverse_current"):
+        if col not in frame:
+            frame[col] = np.nan
+    return frame
+
+
+READERS = {
+    "forward": read_forward,
+    "leakage": read_leakage,
+    "capacitance": read_capacitance,
+    "recovery": read_recovery,
+}

@@ -1,0 +1,83 @@
+"""The reel folder: reel.yaml and the dataset folders beside it."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from kinset.errors import InputError
+from kinset.io.config import read_yaml, validate
+from kinset.io.units import ZERO_CELSIUS_K
+
+DATASETS = ("forward", "leakage", "capacitance", "recovery")
+
+# Defaults of the SPICE IS(T) law by junction material: EG [eV], XTI [1].
+# From memory of the usual SPICE model values (silicon 1.11/3, Schottky barrier
+# 0.69/2, germanium 0.67/3), as the issue that introduced them states.
+MATERIAL_DEFAULTS = {
+    "silicon": {"eg_eV": 1.11, "xti": 3.0},
+    "schottky": {"eg_eV": 0.69, "xti": 2.0},
+    "germanium": {"eg_eV": 0.67, "xti": 3.0},
+}
+
+
+@dataclass(frozen=True)
+class Reel:
+    """A validated reel folder."""
+
+    folder: Path
+    settings: dict
+
+    @property
+    def id(self) -> str:
+        return self.settings["reel"]
+
+    @property
+    def reference_temperature(self) -> float:
+        """[K]"""
+        return self.settings["reference_temperature_C"] + ZERO_CELSIUS_K
+
+    @property
+    def ambient_temperature(self) -> float:
+        """Temperature of rows without one [K]."""
+        t = self.settings["ambient_temperature_C"]
+        return (self.settings["reference_temperature_C"] if t is None else t) + ZERO_CELSIUS_K
+
+    @property
+    def eg(self) -> float:
+        """[eV]"""
+        return self.settings["eg_eV"]
+
+    @property
+    def xti(self) -> float:
+        """[1]"""
+        return self.settings["xti"]
+
+    def dataset_files(self, dataset: str) -> list[Path]:
+        """The dataset's CSV files, sorted by name (Touchstone files come through the index)."""
+        folder = self.folder / dataset
+        if not folder.is_dir():
+            return []
+        skip = {"index.csv"} if dataset == "capacitance" else set()
+        return sorted(p for p in folder.glob("*.csv") if p.name not in skip)
+
+
+def load_reel(folder: str | Path) -> Reel:
+    """Read and validate ``<folder>/reel.yaml``; fill defaults."""
+    folder = Path(folder)
+    path = folder / "reel.yaml"
+    if not folder.is_dir():
+        raise InputError("reel folder does not exist", folder)
+    if not path.is_file():
+        raise InputError("reel folder has no reel.yaml (see the README for its keys)", path)
+    data, lines = read_yaml(path)
+    if data is not None and not isinstance(data, dict):
+        raise InputError("reel.yaml must be a mapping of keys to values", path, 1)
+    settings = validate(data, "reel", path, lines)
+    if "reel" not in settings:
+        name = folder.resolve().name
+        settings["reel"] = name
+    for key, value in MATERIAL_DEFAULTS[settings["material"]].items():
+        if settings.get(key) is None:
+            settings[key] = value
+    return Reel(folder=folder, settings=settings)

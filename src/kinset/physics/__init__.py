@@ -1,0 +1,1 @@
+"""Device physics as pure functions of SI arrays. Physics never opens a file."""

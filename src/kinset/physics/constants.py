@@ -1,0 +1,26 @@
+"""Physical constants (CODATA, through scipy.constants) and the thermal voltage."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import constants as _c
+
+BOLTZMANN = _c.k            # [J/K]
+ELEMENTARY_CHARGE = _c.e    # [C]
+ZERO_CELSIUS = _c.zero_Celsius  # [K]
+
+
+def thermal_voltage(temperature):
+    """Thermal voltage kT/q.
+
+    Parameters
+    ----------
+    temperature : array_like
+        Junction temperature [K].
+
+    Returns
+    -------
+    numpy.ndarray or float
+        kT/q [V].
+    """
+    return BOLTZMANN * np.asarray(temperature, dtype=float) / ELEMENTARY_CHARGE
