@@ -33,22 +33,60 @@ def grouped_normal_equations(index: np.ndarray, jac: np.ndarray, resid: np.ndarr
     return jtj, jtr
 
 
-def solve_stack(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Solve a stack of small systems; singular ones give NaN instead of raising."""
-    out = np.full(b.shape, np.nan)
-    det_ok = np.isfinite(a).all(axis=(1, 2)) & np.isfinite(b).all(axis=1)
-    if det_ok.any():
-        aa, bb = a[det_ok], b[det_ok]
-        # Scale rows and columns to unit diagonal so the conditioning test is fair.
-        d = np.sqrt(np.abs(np.einsum("kii->ki", aa)))
-        d[d == 0] = 1.0
-        scaled = aa / d[:, :, None] / d[:, None, :]
-        good = np.linalg.cond(scaled) < 1e13
-        res = np.full(bb.shape, np.nan)
-        if good.any():
-            res[good] = np.linalg.solve(scaled[good], (bb[good] / d[good])[..., None])[..., 0] / d[good]
-        out[det_ok] = res
-    return out
+def solve_stack(a: np.ndarray, b: np.ndarray, rcond: float = 1e-13) -> np.ndarray:
+    """Solve a stack of small symmetric systems ``a x = b``; singular ones give NaN.
+
+    Rows and columns are first scaled to a unit diagonal (Jacobi scaling) so that
+    parameters of very different size (ln IS, N, RS) are judged fairly; a system
+    whose scaled determinant is below ``rcond`` is called singular.
+    """
+    a = np.asarray(a, dtype=float)
+    b = np.asarray(b, dtype=float)
+    p = a.shape[-1]
+    d = np.sqrt(np.abs(np.einsum("kii->ki", a)))
+    d[~(d > 0)] = 1.0
+    s = a / d[:, :, None] / d[:, None, :]
+    rhs = b / d
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        if p == 1:
+            det = s[:, 0, 0]
+            x = rhs / det[:, None]
+        elif p == 2:
+            det = s[:, 0, 0] * s[:, 1, 1] - s[:, 0, 1] * s[:, 1, 0]
+            x = np.stack([s[:, 1, 1] * rhs[:, 0] - s[:, 0, 1] * rhs[:, 1],
+                          s[:, 0, 0] * rhs[:, 1] - s[:, 1, 0] * rhs[:, 0]], axis=1) / det[:, None]
+        elif p == 3:
+            # Adjugate of a 3x3 matrix (Cramer's rule), vectorised over the stack.
+            c00 = s[:, 1, 1] * s[:, 2, 2] - s[:, 1, 2] * s[:, 2, 1]
+            c01 = s[:, 0, 2] * s[:, 2, 1] - s[:, 0, 1] * s[:, 2, 2]
+            c02 = s[:, 0, 1] * s[:, 1, 2] - s[:, 0, 2] * s[:, 1, 1]
+            c10 = s[:, 1, 2] * s[:, 2, 0] - s[:, 1, 0] * s[:, 2, 2]
+            c11 = s[:, 0, 0] * s[:, 2, 2] - s[:, 0, 2] * s[:, 2, 0]
+            c12 = s[:, 0, 2] * s[:, 1, 0] - s[:, 0, 0] * s[:, 1, 2]
+            c20 = s[:, 1, 0] * s[:, 2, 1] - s[:, 1, 1] * s[:, 2, 0]
+            c21 = s[:, 0, 1] * s[:, 2, 0] - s[:, 0, 0] * s[:, 2, 1]
+            c22 = s[:, 0, 0] * s[:, 1, 1] - s[:, 0, 1] * s[:, 1, 0]
+            det = s[:, 0, 0] * c00 + s[:, 0, 1] * c10 + s[:, 0, 2] * c20
+            x = np.stack([c00 * rhs[:, 0] + c01 * rhs[:, 1] + c02 * rhs[:, 2],
+                          c10 * rhs[:, 0] + c11 * rhs[:, 1] + c12 * rhs[:, 2],
+                          c20 * rhs[:, 0] + c21 * rhs[:, 1] + c22 * rhs[:, 2]], axis=1) / det[:, None]
+        else:
+            det = np.linalg.det(s)
+            good = np.abs(det) > rcond
+            x = np.full(b.shape, np.nan)
+            if good.any():
+                x[good] = np.linalg.solve(s[good], rhs[good][..., None])[..., 0]
+    x = x / d
+    x[~(np.abs(det) > rcond)] = np.nan
+    return x
+
+
+def inverse_diagonal(a: np.ndarray, rcond: float = 1e-13) -> np.ndarray:
+    """Diagonal of the inverse of each matrix in a stack (NaN where singular)."""
+    p = a.shape[-1]
+    eye = np.broadcast_to(np.eye(p), a.shape)
+    cols = [solve_stack(a, eye[:, :, j], rcond)[:, j] for j in range(p)]
+    return np.stack(cols, axis=1)
 
 
 def group_sum(index: np.ndarray, values: np.ndarray, groups: int) -> np.ndarray:

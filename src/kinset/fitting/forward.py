@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import group_sum, grouped_normal_equations, solve_stack
+from kinset.fitting.batch import grouped_normal_equations, inverse_diagonal, solve_stack
 from kinset.format import si
 from kinset.physics.constants import ZERO_CELSIUS, thermal_voltage
 from kinset.physics.forward import forward_voltage_tempco
@@ -52,8 +52,10 @@ def _model(lnis, n, rs, lni, cur, lt, theta_m1, vt, xti, eg):
     """Voltage, and its derivatives with respect to (ln IS0, N, RS), per point."""
     ln_is_t = lnis + (xti / n) * lt + theta_m1 * eg / (n * vt)
     x = lni - ln_is_t
-    sp = np.logaddexp(0.0, x)
-    sig = 0.5 * (1.0 + np.tanh(0.5 * x))
+    # softplus ln(1 + e^x) and its derivative, the logistic function, from one exp.
+    e = np.exp(-np.abs(x))
+    sp = np.maximum(x, 0.0) + np.log1p(e)
+    sig = np.where(x >= 0, 1.0, e) / (1.0 + e)
     v = n * vt * sp + cur * rs
     d_lnis = -n * vt * sig
     d_n = vt * sp + sig * (vt * xti * lt + theta_m1 * eg) / n
@@ -75,63 +77,128 @@ def _start(idx, k, lni, cur, vadj, vt):
 
 
 def levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, xti, eg, p0,
-                        max_iter=200):
-    """Fit (ln IS0, N, RS) per group; returns params, SSR, points per group, converged."""
+                        max_iter=100, rtol=1e-8):
+    """Fit (ln IS0, N, RS) per group by Levenberg–Marquardt, all groups at once.
+
+    Each iteration works only on the groups that have not converged yet. Returns
+    the parameters (k, 3), the sum of squared residuals per group, the number of
+    points per group and whether the start was usable.
+    """
     p = p0.copy()
     m = np.bincount(idx, minlength=k)
-
-    def ssr_of(par):
-        v, _ = _model(par[idx, 0], par[idx, 1], par[idx, 2], lni, cur, lt, theta_m1, vt, xti, eg)
-        r = v - volt
-        return group_sum(idx, r * r, k)
-
     ok = np.isfinite(p).all(axis=1)
     p[~ok] = [-30.0, 1.5, 0.0]
-    ssr = ssr_of(p)
+    order = np.argsort(idx, kind="stable")          # rows grouped by device
+    bounds = np.concatenate([[0], np.cumsum(m)])
     lam = np.full(k, 1e-3)
-    done = ~ok
+    active = ok.copy()
+
+    def rows_of(groups):
+        if len(groups) == k:
+            return order
+        return np.concatenate([order[bounds[g]:bounds[g + 1]] for g in groups]) if len(groups) < 64 \
+            else order[np.repeat(bounds[groups], m[groups]) + _ranks(m[groups])]
+
+    def evaluate(par, groups, rows, local):
+        v, jac = _model(par[local, 0], par[local, 1], par[local, 2], lni[rows], cur[rows],
+                        lt[rows], theta_m1[rows], vt[rows], xti, eg)
+        return v - volt[rows], jac
+
+    groups = np.flatnonzero(active)
+    rows = rows_of(groups)
+    local_of = np.full(k, -1)
+    local_of[groups] = np.arange(len(groups))
+    r, jac = evaluate(p[groups], groups, rows, local_of[idx[rows]])
+    ssr = np.full(k, np.nan)
+    ssr[groups] = np.bincount(local_of[idx[rows]], r * r, minlength=len(groups))
     for _ in range(max_iter):
-        if done.all():
+        if not len(groups):
             break
-        v, jac = _model(p[idx, 0], p[idx, 1], p[idx, 2], lni, cur, lt, theta_m1, vt, xti, eg)
-        jtj, jtr = grouped_normal_equations(idx, jac, v - volt, k)
+        li = local_of[idx[rows]]
+        g = len(groups)
+        jtj, jtr = grouped_normal_equations(li, jac, r, g)
         diag = np.einsum("kii->ki", jtj)
-        a = jtj + lam[:, None, None] * np.eye(3)[None] * diag[:, :, None]
+        a = jtj + lam[groups, None, None] * np.eye(3)[None] * diag[:, :, None]
         step = solve_stack(a, -jtr)
-        step[done] = 0.0
-        bad_step = ~np.isfinite(step).all(axis=1)
-        step[bad_step] = 0.0
-        trial = p + step
+        bad = ~np.isfinite(step).all(axis=1)
+        step[bad] = 0.0
+        trial = p[groups] + step
         trial[:, 1] = np.clip(trial[:, 1], *N_BOUNDS)
         trial[:, 2] = np.maximum(trial[:, 2], 0.0)
-        new = ssr_of(trial)
-        better = (new < ssr) & ~done
-        gain = np.where(better, (ssr - new) / np.maximum(ssr, 1e-300), 0.0)
-        p[better] = trial[better]
-        ssr = np.where(better, new, ssr)
-        lam = np.where(better, lam / 5.0, lam * 5.0)
-        small = np.abs(step) <= 1e-10 * (1.0 + np.abs(p))
-        done |= (better & (gain < 1e-12)) | (lam > 1e12) | small.all(axis=1) | bad_step
+        r_new, jac_new = evaluate(trial, groups, rows, li)
+        new = np.bincount(li, r_new * r_new, minlength=g)
+        old = ssr[groups]
+        better = new < old
+        gain = np.where(better, (old - new) / np.maximum(old, 1e-300), 0.0)
+        p[groups[better]] = trial[better]
+        ssr[groups[better]] = new[better]
+        lam[groups] = np.where(better, lam[groups] / 5.0, lam[groups] * 5.0)
+        small = (np.abs(step) <= 1e-9 * (1.0 + np.abs(p[groups]))).all(axis=1)
+        finished = (better & (gain < rtol)) | (lam[groups] > 1e10) | small | bad
+        # Keep the residuals and Jacobian of the accepted points for the next step.
+        keep_row = better[li]
+        r = np.where(keep_row, r_new, r)
+        jac = np.where(keep_row[:, None], jac_new, jac)
+        if finished.any():
+            stay = ~finished
+            groups = groups[stay]
+            row_keep = stay[li]
+            rows, r, jac = rows[row_keep], r[row_keep], jac[row_keep]
+            local_of[:] = -1
+            local_of[groups] = np.arange(len(groups))
     return p, ssr, m, ok
 
 
-def _plateaus(dev, cur, volt, usable):
+def _ranks(sizes):
+    """0..n-1 within each consecutive block of the given sizes."""
+    starts = np.repeat(np.cumsum(sizes) - sizes, sizes)
+    return np.arange(int(sizes.sum())) - starts
+
+
+class _Segments:
+    """Per-device reductions over points sorted by device (contiguous blocks)."""
+
+    def __init__(self, codes: np.ndarray, n: int):
+        self.counts = np.bincount(codes, minlength=n)
+        self.starts = np.concatenate([[0], np.cumsum(self.counts)[:-1]])
+        self.codes = codes
+
+    def max(self, x):
+        return np.fmax.reduceat(x, self.starts)
+
+    def min(self, x):
+        return np.fmin.reduceat(x, self.starts)
+
+    def count(self, mask):
+        return np.add.reduceat(mask.astype(np.int64), self.starts)
+
+    def spread(self, x, mask):
+        """max − min of x over the masked points of each device (NaN where none)."""
+        y = np.where(mask, x, np.nan)
+        return self.max(y) - self.min(y)
+
+    def each(self, per_device):
+        return per_device[self.codes]
+
+    def distinct(self, x, mask):
+        """Number of distinct values of x among the masked points of each device."""
+        sel = np.flatnonzero(mask)
+        order = np.lexsort((x[sel], self.codes[sel]))
+        d, v = self.codes[sel][order], x[sel][order]
+        new = np.ones(len(d), dtype=bool)
+        new[1:] = (d[1:] != d[:-1]) | (v[1:] != v[:-1])
+        return np.bincount(d[new], minlength=len(self.counts))
+
+
+def _plateaus(seg: _Segments, cur, volt, usable):
     """Points at an instrument's limit: a top-of-sweep plateau in current or voltage."""
-    frame = pd.DataFrame({"dev": dev, "i": np.where(usable, cur, np.nan),
-                          "v": np.where(usable, volt, np.nan)})
-    g = frame.groupby("dev")
-    imax = g["i"].transform("max").to_numpy()
+    imax = seg.each(seg.max(np.where(usable, cur, np.nan)))
     near_i = usable & (cur >= imax * (1 - PLATEAU_REL))
-    frame["vi"] = np.where(near_i, volt, np.nan)
-    gv = frame.groupby("dev")["vi"]
-    spread_v = (gv.transform("max") - gv.transform("min")).to_numpy()
-    at_current_limit = near_i & (spread_v > PLATEAU_V)
-    vmax = g["v"].transform("max").to_numpy()
+    at_current_limit = near_i & (seg.each(seg.spread(volt, near_i)) > PLATEAU_V)
+    vmax = seg.each(seg.max(np.where(usable, volt, np.nan)))
     near_v = usable & (volt >= vmax - 1e-4) & ~at_current_limit
-    frame["iv"] = np.where(near_v, cur, np.nan)
-    gi = frame.groupby("dev")["iv"]
-    spread_i = (gi.transform("max") / gi.transform("min")).to_numpy()
-    at_voltage_limit = near_v & (spread_i > 1.01)
+    log_i = np.log(np.where(near_v, cur, np.nan))
+    at_voltage_limit = near_v & (seg.each(seg.spread(log_i, near_v)) > np.log(1.01))
     return at_current_limit, at_voltage_limit
 
 
@@ -149,35 +216,36 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
     Returns
     -------
     devices : DataFrame
-        One row per device: ``device, status, note, is_A, n, rs_ohm, points,
-        fit_rms_V, self_heating_K`` and the standard errors, current and temperature
-        ranges and the constants the parameters hold with.
+        One row per device, sorted by id: ``device, status, note, is_A, n, rs_ohm,
+        points, fit_rms_V, self_heating_K`` and the standard errors, current and
+        temperature ranges and the constants the parameters hold with.
     readings : DataFrame
-        Every reading with ``used`` (whether it entered the fit) for the report.
+        Every reading, grouped by device in input order, with ``used`` (whether it
+        entered the fit), for the report and for single readings.
     """
     s = settings
-    points = points.reset_index(drop=True)
-    dev_codes, names = pd.factorize(points["device"].astype(str), sort=True)
+    codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
+    order = np.argsort(codes, kind="stable")
+    dev_codes = codes[order]
     n_dev = len(names)
-    cur = points["current"].to_numpy(dtype=float)
-    volt = points["voltage"].to_numpy(dtype=float)
-    temp = points["temperature"].to_numpy(dtype=float)
+    seg = _Segments(dev_codes, n_dev)
+    cur = points["current"].to_numpy(dtype=float)[order]
+    volt = points["voltage"].to_numpy(dtype=float)[order]
+    temp = points["temperature"].to_numpy(dtype=float)[order]
     temp = np.where(np.isfinite(temp), temp, s.ambient_temperature)
     finite = np.isfinite(cur) & np.isfinite(volt)
     nonpos = finite & (cur <= 0)
     usable = finite & (cur > 0)
-    at_ilim, at_vlim = _plateaus(dev_codes, cur, volt, usable)
+    at_ilim, at_vlim = _plateaus(seg, cur, volt, usable)
     used = usable & ~at_ilim & ~at_vlim
 
-    count = lambda mask: np.bincount(dev_codes, mask.astype(float), minlength=n_dev).astype(int)
-    n_total, n_nonpos, n_used = count(np.ones_like(used)), count(nonpos), count(used)
-    n_ilim, n_vlim = count(at_ilim), count(at_vlim)
-    all_reversed = count(finite & (cur < 0) & (volt < 0)) == n_total
+    n_total = seg.counts
+    n_nonpos, n_used = seg.count(nonpos), seg.count(used)
+    n_ilim, n_vlim = seg.count(at_ilim), seg.count(at_vlim)
+    all_reversed = seg.count(finite & (cur < 0) & (volt < 0)) == n_total
     # Distinct currents among used points decide whether a fit is possible.
-    key = pd.DataFrame({"d": dev_codes[used], "i": np.round(np.log(cur[used]), 6)})
-    distinct = np.zeros(n_dev, dtype=int)
-    nun = key.groupby("d")["i"].nunique()
-    distinct[nun.index.to_numpy()] = nun.to_numpy()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        distinct = seg.distinct(np.round(np.log(cur), 6), used)
     fit_dev = distinct >= 3
 
     params = np.full((n_dev, 3), np.nan)
@@ -206,10 +274,7 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
         dof = m - 3
         with np.errstate(invalid="ignore", divide="ignore"):
             s2 = np.where(dof > 0, ssr / np.maximum(dof, 1), np.nan)
-            cov_diag = np.full((k, 3), np.nan)
-            inv_ok = np.isfinite(jtj).all(axis=(1, 2)) & (np.linalg.cond(jtj) < 1e15)
-            if inv_ok.any():
-                cov_diag[inv_ok] = np.einsum("kii->ki", np.linalg.inv(jtj[inv_ok]))
+            cov_diag = inverse_diagonal(jtj, rcond=1e-15)
             params[fit_ids] = np.where(ok[:, None], p, np.nan)
             se[fit_ids] = np.sqrt(s2[:, None] * cov_diag)
             rms[fit_ids] = np.sqrt(ssr / m)
@@ -224,22 +289,22 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
             cur[have], np.exp(p_pt[have, 0]), p_pt[have, 1], p_pt[have, 2], temp[have],
             s.reference_temperature, s.activation_energy, s.xti)
     shift = np.where(used, np.abs(tempco) * d_t, 0.0)
-    frame = pd.DataFrame({"d": dev_codes, "dt": np.where(used, d_t, np.nan), "shift": shift,
-                          "i": np.where(used, cur, np.nan), "t": np.where(used, temp, np.nan),
-                          "pos": points["position"].to_numpy(dtype=float),
-                          "src": points["source"].astype(str).to_numpy()})
-    g = frame.groupby("d")
-    heat_k = g["dt"].max().reindex(range(n_dev)).to_numpy()
-    shift_max = g["shift"].max().reindex(range(n_dev)).to_numpy()
-    shift_at = frame.loc[g["shift"].idxmax().reindex(range(n_dev)).to_numpy(), "i"].to_numpy()
-    i_min = g["i"].min().reindex(range(n_dev)).to_numpy()
-    i_max = g["i"].max().reindex(range(n_dev)).to_numpy()
-    t_min = g["t"].min().reindex(range(n_dev)).to_numpy()
-    t_max = g["t"].max().reindex(range(n_dev)).to_numpy()
-    pos_min = g["pos"].min().reindex(range(n_dev)).to_numpy()
-    pos_max = g["pos"].max().reindex(range(n_dev)).to_numpy()
-    n_files = g["src"].nunique().reindex(range(n_dev)).to_numpy()
+    heat_k = seg.max(np.where(used, d_t, np.nan))
+    shift_max = seg.max(shift)
+    top = np.flatnonzero((shift == seg.each(shift_max)) & used)
+    shift_at = np.full(n_dev, np.nan)
+    shift_at[dev_codes[top[::-1]]] = cur[top[::-1]]      # first such point per device
+    i_limit = seg.max(np.where(at_ilim, cur, np.nan))
+    i_min = seg.min(np.where(used, cur, np.nan))
+    i_max = seg.max(np.where(used, cur, np.nan))
+    t_min = seg.min(np.where(used, temp, np.nan))
+    t_max = seg.max(np.where(used, temp, np.nan))
+    pos = points["position"].to_numpy(dtype=float)[order]
+    pos_min, pos_max = seg.min(pos), seg.max(pos)
+    src_codes = pd.factorize(points["source"].astype(str).to_numpy()[order])[0]
+    n_files = seg.distinct(src_codes, np.ones(len(src_codes), dtype=bool))
 
+    fitted_ok = np.isfinite(params).all(axis=1)
     status, notes = [], []
     for d in range(n_dev):
         note: list[str] = []
@@ -248,7 +313,7 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
             note.append(f"{n_nonpos[d]} reading(s) with zero or negative current ignored")
         if n_ilim[d]:
             note.append(f"{n_ilim[d]} reading(s) at the current limit near "
-                        f"{si(i_max[d] if np.isfinite(i_max[d]) else np.nan, 'A')} left out")
+                        f"{si(i_limit[d], 'A')} left out")
         if n_vlim[d]:
             note.append(f"{n_vlim[d]} reading(s) at the voltage limit left out")
         if n_files[d] > 1:
@@ -271,7 +336,7 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
             else:
                 note.insert(0, f"two points ({si(i_min[d], 'A')}, {si(i_max[d], 'A')}): too "
                             f"few to fit; usable only at their own currents")
-        elif not np.isfinite(params[d]).all():
+        elif not fitted_ok[d]:
             st = "rejected"
             note.insert(0, "the fit did not converge: readings do not follow a diode law")
         else:
@@ -318,10 +383,10 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
         "xti": s.xti,
     })
     readings = pd.DataFrame({
-        "device": points["device"].astype(str).to_numpy(),
+        "device": np.asarray(names, dtype=object)[dev_codes],
         "current_A": cur, "voltage_V": volt, "temperature_C": temp - ZERO_CELSIUS,
         "used": used.astype(int),
-        "source": points["source"].astype(str).to_numpy(),
-        "line": points["line"].to_numpy(),
+        "source": points["source"].astype(str).to_numpy()[order],
+        "line": points["line"].to_numpy()[order],
     })
     return out, readings

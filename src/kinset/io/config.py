@@ -58,7 +58,10 @@ def read_yaml(path: str | Path) -> tuple[Any, dict]:
         data = yaml.safe_load(text)
     except yaml.MarkedYAMLError as exc:
         line = exc.problem_mark.line + 1 if exc.problem_mark else None
-        raise InputError(f"not valid YAML: {exc.problem}", path, line) from None
+        context = ""
+        if exc.context_mark is not None and exc.context_mark.line + 1 != line:
+            context = f" ({exc.context} on line {exc.context_mark.line + 1})"
+        raise InputError(f"not valid YAML: {exc.problem}{context}", path, line) from None
     except yaml.YAMLError as exc:
         raise InputError(f"not valid YAML: {exc}", path) from None
     lines = _key_lines(node) if node is not None else {}

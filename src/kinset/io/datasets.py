@@ -6,15 +6,13 @@ by quantity in SI (temperatures in kelvin) plus ``device``, ``source`` and ``lin
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from kinset.errors import InputError
-from kinset.io.tables import Spec, read_table, _body
-from kinset.io.units import split_column
+from kinset.io.tables import Spec, read_table
 
 FORWARD_SWEEP = Spec(
     quantities={"voltage": "voltage", "current": "current", "temperature": "temperature"},
@@ -49,17 +47,6 @@ RECOVERY = Spec(
 )
 
 
-def _header_quantities(path: str) -> set[str]:
-    body, _ = _body(path)
-    header = pd.read_csv(io.StringIO(body.split("\n", 1)[0]), nrows=0, skipinitialspace=True)
-    out = set()
-    for col in header.columns:
-        parts = split_column(str(col))
-        if parts:
-            out.add(parts[0])
-    return out
-
-
 def read_forward(path: str | Path) -> pd.DataFrame:
     """Read a forward V–I file in either form of the contract.
 
@@ -74,11 +61,8 @@ def read_forward(path: str | Path) -> pd.DataFrame:
         position (NaN when not given), source, line``.
     """
     path = str(path)
-    present = _header_quantities(path)
-    if "current" in present or not {"supply", "resistance"} <= present:
-        frame = read_table(path, FORWARD_SWEEP)
-    else:
-        frame = read_table(path, FORWARD_SUPPLY)
+    frame = read_table(path, [FORWARD_SWEEP, FORWARD_SUPPLY])
+    if "current" not in frame:
         r = frame["resistance"].to_numpy()
         bad = r <= 0
         if bad.any():

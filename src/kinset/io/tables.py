@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 
 from kinset.errors import InputError
-from kinset.io.units import resolve_columns
+from kinset.io.units import resolve_columns, split_column
 
 _COMMENT = re.compile(rb"^[ \t]*#", re.MULTILINE)
 
@@ -40,9 +40,53 @@ class Spec:
     integer: tuple[str, ...] = ()
 
 
-def _decode(raw: bytes, path: str) -> str:
+def _body(path: str) -> tuple[str | bytes, np.ndarray]:
+    """The file without comment and blank lines, and the kept lines' 0-based indices.
+
+    Comment and blank lines found only above the header and below the last data line
+    (the usual layout of an export) are cut off without copying the body line by line.
+    """
+    try:
+        raw = Path(path).read_bytes()
+    except OSError as exc:
+        raise InputError(f"cannot read file: {exc.strerror}", path) from None
     if raw.startswith(b"\xef\xbb\xbf"):
         raw = raw[3:]
+    text = _decode(raw, path)
+    data = np.frombuffer(raw, dtype=np.uint8)
+    newlines = np.flatnonzero(data == 10)
+    n_lines = len(newlines) + (0 if raw.endswith(b"\n") else 1)
+    if not raw:
+        n_lines = 0
+    starts = np.concatenate([[0], newlines + 1])[:n_lines]
+    first_char = np.append(data, np.uint8(10))[starts]
+    indented = (first_char == 32) | (first_char == 9)
+    if indented.any():   # rare: look past leading blanks the slow way
+        for i in np.flatnonzero(indented):
+            end = newlines[i] if i < len(newlines) else len(raw)
+            stripped = raw[starts[i]:end].lstrip(b" \t")
+            first_char[i] = stripped[0] if stripped else 10
+    skipped = np.flatnonzero((first_char == 35) | (first_char == 10) | (first_char == 13))
+    kept_mask = np.ones(n_lines, dtype=bool)
+    kept_mask[skipped] = False
+    kept = np.flatnonzero(kept_mask)
+    if not len(kept):
+        raise InputError("file holds no header and no data", path)
+    first, last = kept[0], kept[-1]
+    if len(kept) == last - first + 1:       # nothing skipped between header and last row
+        start = 0 if first == 0 else newlines[first - 1] + 1
+        end = newlines[last] if last < len(newlines) else len(raw)
+        return raw[start:end], kept
+    lines = text.splitlines()
+    return "\n".join(lines[i] for i in kept), kept
+
+
+def _first_line(body: str | bytes) -> str:
+    head = body.split(b"\n" if isinstance(body, bytes) else "\n", 1)[0]
+    return head.decode("utf-8") if isinstance(head, bytes) else head
+
+
+def _decode(raw: bytes, path: str) -> str:
     try:
         return raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -51,31 +95,29 @@ def _decode(raw: bytes, path: str) -> str:
                          f"(save the file as UTF-8)", path, line) from None
 
 
-def _body(path: str) -> tuple[str, list[int]]:
-    """The file's text without comment and blank lines, and the kept lines' indices."""
+def _parse(body: str, keep: list[int], path: str, dtype, numeric=()) -> pd.DataFrame:
+    """pandas' C parser on the kept lines; only numeric columns read '' as missing."""
     try:
-        raw = Path(path).read_bytes()
-    except OSError as exc:
-        raise InputError(f"cannot read file: {exc.strerror}", path) from None
-    text = _decode(raw, path)
-    all_lines = text.splitlines()
-    keep = [i for i, s in enumerate(all_lines) if s.strip() and not s.lstrip().startswith("#")]
-    if not keep:
-        raise InputError("file holds no header and no data", path)
-    return "\n".join(all_lines[i] for i in keep), keep
-
-
-def _parse(body: str, keep: list[int], path: str, dtype) -> pd.DataFrame:
-    try:
-        return pd.read_csv(io.StringIO(body), dtype=dtype, keep_default_na=False,
-                           na_values=[""] if dtype is not str else None,
-                           skipinitialspace=True, skip_blank_lines=False)
+        source = io.BytesIO(body) if isinstance(body, bytes) else io.StringIO(body)
+        table = pd.read_csv(source, dtype=dtype, keep_default_na=False,
+                            na_values={c: [""] for c in numeric},
+                            skipinitialspace=True, skip_blank_lines=False)
     except pd.errors.ParserError as exc:
         m = re.search(r"line (\d+)", str(exc))
-        line = keep[int(m.group(1)) - 1] + 1 if m and int(m.group(1)) - 1 < len(keep) else None
+        line = int(keep[int(m.group(1)) - 1]) + 1 if m and int(m.group(1)) - 1 < len(keep) else None
         raise InputError(f"row does not fit the header ({exc})", path, line) from None
     except pd.errors.EmptyDataError:
         raise InputError("file holds no header and no data", path) from None
+    if not isinstance(table.index, pd.RangeIndex):
+        # pandas took the first column as an index: data rows have more fields than the header.
+        text_body = body.decode("utf-8") if isinstance(body, bytes) else body
+        header_fields = _first_line(text_body).count(",")
+        for row, text in enumerate(text_body.split("\n")[1:]):
+            if text.count(",") > header_fields:
+                raise InputError(f"row has more fields than the header "
+                                 f"({text.count(',') + 1} > {header_fields + 1})", path,
+                                 int(keep[row + 1]) + 1)
+    return table
 
 
 def _check_header(columns, path: str, header_line: int) -> list[str]:
@@ -101,15 +143,15 @@ def read_text_table(path: str | Path) -> tuple[pd.DataFrame, np.ndarray]:
     path = str(path)
     body, keep = _body(path)
     table = _parse(body, keep, path, str)
-    table.columns = _check_header(table.columns, path, keep[0] + 1)
-    return table, np.asarray(keep[1:], dtype=np.int64) + 1
+    table.columns = _check_header(table.columns, path, int(keep[0]) + 1)
+    return table, keep[1:].astype(np.int64) + 1
 
 
 def _fast_numeric(body, keep, path, cols, numeric, required, found):
     """Parse numeric columns straight to float; None when any cell needs a closer look."""
-    dtype = {c: (np.float64 if c in numeric else str) for c in cols}
+    dtype = {c: (np.float64 if c in numeric else "category") for c in cols}
     try:
-        table = _parse(body, keep, path, dtype)
+        table = _parse(body, keep, path, dtype, numeric)
     except (ValueError, TypeError) as exc:
         if isinstance(exc, InputError):
             raise
@@ -149,8 +191,30 @@ def to_number(cells: pd.Series, lines: np.ndarray, path: str, column: str,
     return values
 
 
-def read_table(path: str | Path, spec: Spec) -> pd.DataFrame:
+def _stripped_text(column: pd.Series) -> pd.Series:
+    """Text cells without surrounding blanks (stripping only the distinct values)."""
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        cats = np.asarray([str(c).strip() for c in column.cat.categories], dtype=object)
+        codes = column.cat.codes.to_numpy()
+        values = np.where(codes >= 0, cats[np.maximum(codes, 0)] if len(cats) else "", "")
+        return pd.Series(values.astype(object), index=column.index)
+    return column.astype(str).str.strip()
+
+
+def _choose(specs: list[Spec], cols: list[str]) -> Spec:
+    present = {parts[0] for c in cols if (parts := split_column(c))}
+    for spec in specs:
+        if spec.required <= present:
+            return spec
+    return specs[0]
+
+
+def read_table(path: str | Path, spec: Spec | list[Spec]) -> pd.DataFrame:
     """Read one CSV file into SI columns named by quantity.
+
+    ``spec`` may list alternative forms of a table: the first whose required
+    quantities all appear in the header is used (the first one when none fits,
+    so that the error names what is missing).
 
     The returned frame has the text columns of ``spec`` as str, every quantity
     found as float in SI (temperatures in kelvin), and two bookkeeping columns:
@@ -158,15 +222,17 @@ def read_table(path: str | Path, spec: Spec) -> pd.DataFrame:
     """
     path = str(path)
     body, keep = _body(path)
-    lines = np.asarray(keep[1:], dtype=np.int64) + 1
-    header = pd.read_csv(io.StringIO(body.split("\n", 1)[0]), nrows=0, skipinitialspace=True)
-    cols = _check_header(header.columns, path, keep[0] + 1)
+    lines = keep[1:].astype(np.int64) + 1
+    header = pd.read_csv(io.StringIO(_first_line(body)), nrows=0, skipinitialspace=True)
+    cols = _check_header(header.columns, path, int(keep[0]) + 1)
+    if isinstance(spec, list):
+        spec = _choose(spec, cols)
     for name in spec.required_text:
         if name not in cols:
             raise InputError(f"missing required column '{name}' "
-                             f"(columns present: {', '.join(cols)})", path, keep[0] + 1)
+                             f"(columns present: {', '.join(cols)})", path, int(keep[0]) + 1)
     required = set(spec.required)
-    found = resolve_columns(cols, spec.quantities, path, required, keep[0] + 1)
+    found = resolve_columns(cols, spec.quantities, path, required, int(keep[0]) + 1)
     numeric = [col for col, _ in found.values()] + [c for c in spec.integer if c in cols]
     fast = _fast_numeric(body, keep, path, cols, numeric, required, found)
     if fast is not None:
@@ -177,7 +243,7 @@ def read_table(path: str | Path, spec: Spec) -> pd.DataFrame:
     out: dict[str, object] = {}
     for name in spec.text:
         if name in cols:
-            s = cells[name].astype(str).str.strip()
+            s = _stripped_text(cells[name])
             if name in spec.required_text:
                 empty = (s == "").to_numpy()
                 if empty.any():

@@ -187,7 +187,7 @@ def current_from_voltage(voltage, saturation_current, ideality, resistance_serie
 def forward_voltage_tempco(current, saturation_current, ideality, resistance_series,
                            temperature, reference_temperature, activation_energy, xti,
                            resistance_tempco=0.0):
-    """Temperature coefficient dV/dT of the forward voltage at a constant current.
+    r"""Temperature coefficient dV/dT of the forward voltage at a constant current.
 
     Parameters
     ----------

@@ -1,0 +1,29 @@
+# kinset workflow: extraction per dataset, then devices.csv, for one reel.
+#   snakemake --cores 2                              # the demo reel in data_demo/
+#   snakemake --cores 2 --config reel=PATH           # another reel
+from snakemake.utils import min_version, validate
+
+from kinset.io.config import schema_path
+from kinset.workflow import BUCKET_PATTERN, make_plan
+
+min_version("8.0")
+
+validate(config, str(schema_path("workflow")), set_default=True)
+PLAN = make_plan(config)
+OUT = str(PLAN.out)
+
+wildcard_constraints:
+    dataset="forward|leakage|capacitance|recovery",
+    bucket=BUCKET_PATTERN,
+
+
+include: "rules/common.smk"
+include: "rules/parse.smk"
+include: "rules/forward.smk"
+include: "rules/devices.smk"
+
+
+rule all:
+    default_target: True
+    input:
+        PLAN.targets(),

@@ -1,0 +1,83 @@
+"""The Snakemake workflow end to end on a small reel, and what a rerun touches."""
+
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from kinset.physics.forward import voltage_from_current
+
+ROOT = Path(__file__).resolve().parents[1]
+pytestmark = pytest.mark.workflow
+
+
+def make_reel(folder: Path):
+    (folder / "forward").mkdir(parents=True)
+    (folder / "reel.yaml").write_text("reel: wf-test\nmaterial: silicon\npart: test part\n")
+    currents = np.logspace(-5, -2, 12)
+    for name, devs in {"batch1": ["A1", "A2"], "batch2": ["B1"]}.items():
+        lines = ["device,position,current_A,voltage_V"]
+        for k, d in enumerate(devs):
+            v = voltage_from_current(currents, 2.7e-9, 1.85, 0.6, 298.15)
+            lines += [f"{d},{k + 1},{i:.6e},{u:.6f}" for i, u in zip(currents, v)]
+        (folder / "forward" / f"{name}.csv").write_text("\n".join(lines) + "\n")
+
+
+def snakemake(work: Path, *args):
+    cmd = [sys.executable, "-m", "snakemake", "-s", str(ROOT / "Snakefile"), "--cores", "2",
+           "--directory", str(work), "--config", f"reel={work / 'reel'}",
+           f"results={work / 'results'}", *args]
+    return subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+
+
+def planned_jobs(work: Path) -> dict[str, int]:
+    r = snakemake(work, "--dry-run", "--quiet", "rules")
+    assert r.returncode == 0, r.stderr + r.stdout
+    jobs = {}
+    for line in (r.stdout + r.stderr).splitlines():
+        parts = line.split()
+        if len(parts) == 2 and parts[1].isdigit() and parts[0] not in ("total", "job"):
+            jobs[parts[0]] = int(parts[1])
+    return jobs
+
+
+def test_workflow_runs_and_reruns_only_what_changed(tmp_path):
+    make_reel(tmp_path / "reel")
+    r = snakemake(tmp_path)
+    assert r.returncode == 0, r.stderr
+    out = tmp_path / "results" / "wf-test"
+    fwd = pd.read_csv(out / "forward.csv")
+    for col in ("device", "status", "note", "is_A", "n", "rs_ohm", "points", "fit_rms_V",
+                "self_heating_K"):
+        assert col in fwd.columns
+    assert sorted(fwd["device"]) == ["A1", "A2", "B1"]
+    devices = pd.read_csv(out / "devices.csv")
+    assert {"device", "position"} <= set(devices.columns)
+    assert len(devices) == 3
+
+    assert planned_jobs(tmp_path) == {}  # nothing to do
+
+    # A new batch file: only its parse job, then the extraction and the merge.
+    shutil.copy(tmp_path / "reel" / "forward" / "batch2.csv", tmp_path / "reel" / "forward" / "batch3.csv")
+    text = (tmp_path / "reel" / "forward" / "batch3.csv").read_text().replace("B1,", "C1,")
+    (tmp_path / "reel" / "forward" / "batch3.csv").write_text(text)
+    assert planned_jobs(tmp_path) == {"parse": 1, "extract_forward": 1, "devices": 1, "all": 1}
+    assert snakemake(tmp_path).returncode == 0
+
+    # An edit of reel.yaml that no extraction uses reruns nothing ...
+    reel_yaml = tmp_path / "reel" / "reel.yaml"
+    reel_yaml.write_text(reel_yaml.read_text().replace("test part", "another part"))
+    assert planned_jobs(tmp_path) == {}
+    # ... while the reference temperature reruns the fit, not the parsing.
+    reel_yaml.write_text(reel_yaml.read_text() + "reference_temperature_C: 27\n")
+    assert planned_jobs(tmp_path) == {"extract_forward": 1, "devices": 1, "all": 1}
+
+
+def test_lint_is_clean(tmp_path):
+    make_reel(tmp_path / "reel")
+    r = snakemake(tmp_path, "--lint")
+    assert r.returncode == 0, r.stdout + r.stderr
