@@ -25,4 +25,4 @@ rule extract_forward:
         "../envs/kinset.yaml"
     shell:
         "{params.python} -m kinset extract forward --reel {params.reel:q} "
-        "-o {output.table} --readings {output.readings} {input.parsed} 2> {log}"
+        "-o {output.table} {input.parsed} 2> {log}"

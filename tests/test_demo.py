@@ -66,6 +66,13 @@ def test_rewrite_replaces_an_older_demo_and_seed_matters(tmp_path):
     assert (b / name).read_bytes() != (c / name).read_bytes()
 
 
+def test_demo_never_overwrites_a_real_reel_yaml(tmp_path):
+    (tmp_path / "reel.yaml").write_text("material: silicon\n", encoding="utf-8")
+    with pytest.raises(FileExistsError, match="not written by kinset demo"):
+        write_demo(tmp_path, devices=20)
+    assert (tmp_path / "reel.yaml").read_text(encoding="utf-8") == "material: silicon\n"
+
+
 def test_demo_size_stays_small(demo):
     total = sum((demo / n).stat().st_size for n in _files(demo))
     assert total < 3_000_000
@@ -78,6 +85,7 @@ def test_demo_reel_yaml_validates(demo):
     assert reel.id == "demo-0412"
     assert reel.settings["material"] == "silicon"
     assert reel.settings["thermal_resistance_K_per_W"] == 300
+    assert reel.settings["self_heating"] == "correct"     # the sweeps are steady-state DC
     assert reel.settings["leakage"] == {"report_at_V": [20], "breakdown_current_A": 1.0e-4}
     assert reel.settings["recovery"]["end"] == {"fraction_of_peak": 0.1}
     raw = yaml.safe_load((demo / "reel.yaml").read_text(encoding="utf-8"))
@@ -169,9 +177,10 @@ def test_demo_breakdown_sweeps_end_at_the_current_limit(demo, truth):
 def test_demo_forward_voltage_falls_in_the_warm_batch(demo):
     frames = {p.stem: read_forward(p) for p in load_reel(demo).dataset_files("forward")}
 
-    def at_1ma(frame):
-        rows = frame[np.isclose(frame["current"], 1.0024e-3, rtol=1e-3)]
-        return rows["voltage"].median()
+    def at_1ma(frame):                      # the swept current nearest 1 mA
+        levels = np.unique(frame["current"])
+        near = levels[np.argmin(np.abs(np.log(levels / 1e-3)))]
+        return frame.loc[frame["current"] == near, "voltage"].median()
 
     shift = at_1ma(frames["batch_c_sweep_warm"]) - at_1ma(frames["batch_a_sweep"])
     # Common practice: a silicon diode's forward voltage falls about 2 mV/K; the warm

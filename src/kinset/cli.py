@@ -20,20 +20,18 @@ def _cmd_parse(args) -> None:
 
 
 def _cmd_extract(args) -> None:
-    from kinset.extract import extract_forward
     from kinset.io.output import write_csv
     from kinset.io.reel import load_reel
     reel = load_reel(args.reel)
-    if args.dataset == "forward":
-        table, readings = extract_forward(reel, args.files)
-        write_csv(table, args.output)
-        readings_path = args.readings or Path(args.output).with_name(
-            Path(args.output).stem + "_readings.csv")
-        write_csv(readings, readings_path)
-        counts = table["status"].value_counts().to_dict()
-        print(f"forward: {len(table)} devices "
-              + ", ".join(f"{counts.get(s, 0)} {s}" for s in ("ok", "warning", "rejected")),
-              file=sys.stderr)
+    result = EXTRACTORS[args.dataset](reel, args.files)
+    out = Path(args.output)
+    write_csv(result.table, out)
+    for name, extra in result.extras.items():
+        write_csv(extra, out.with_name(f"{out.stem}_{name}.csv"))
+    counts = result.table["status"].value_counts().to_dict()
+    print(f"{args.dataset}: {len(result.table)} devices, "
+          + ", ".join(f"{counts.get(s, 0)} {s}" for s in ("ok", "warning", "rejected")),
+          file=sys.stderr)
 
 
 def _cmd_devices(args) -> None:
@@ -45,7 +43,10 @@ def _cmd_devices(args) -> None:
 
 def _cmd_demo(args) -> None:
     from kinset.demo import write_demo
-    out = write_demo(Path(args.out), devices=args.devices, seed=args.seed)
+    try:
+        out = write_demo(Path(args.out), devices=args.devices, seed=args.seed)
+    except (FileExistsError, ValueError) as exc:
+        raise InputError(f"{exc}", args.out) from None
     print(f"demo reel written to {out}", file=sys.stderr)
 
 
@@ -60,10 +61,8 @@ def build_parser() -> argparse.ArgumentParser:
     for dataset in EXTRACTORS:
         k = kinds.add_parser(dataset, help=f"extract the {dataset} dataset")
         k.add_argument("--reel", required=True, help="reel folder (with reel.yaml)")
-        k.add_argument("-o", "--output", required=True, help="output table (CSV)")
-        if dataset == "forward":
-            k.add_argument("--readings", help="where to write the readings table "
-                           "(default: <output stem>_readings.csv beside the output)")
+        k.add_argument("-o", "--output", required=True, help="output table (CSV); side "
+                       "tables such as the forward readings go beside it as <stem>_<name>.csv")
         k.add_argument("files", nargs="*", help="input files (default: every CSV in the "
                        "reel's dataset folder); parsed .npz files from 'kinset parse' too")
         k.set_defaults(func=_cmd_extract)

@@ -510,9 +510,12 @@ def _recovery_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
 
 # --------------------------------------------------------------------------- reel.yaml
 
+_YAML_MARK = "# kinset demo reel:"   # first line of a demo reel.yaml; guards against overwriting
+
+
 def _reel_yaml(reel: str, devices: int, seed: int) -> str:
     return f"""\
-# kinset demo reel: synthetic data written by `kinset demo` ({devices} devices,
+{_YAML_MARK} synthetic data written by `kinset demo` ({devices} devices,
 # seed {seed}). The workshop, the reel and every reading are invented; the devices
 # follow kinset's own physics models plus instrument noise (see truth.csv).
 reel: {reel}
@@ -520,6 +523,9 @@ part: small-signal switching diode, silicon, glass axial
 material: silicon
 reference_temperature_C: 25
 thermal_resistance_K_per_W: 300
+# The forward sweeps are slow DC sweeps: each reading's junction sits at the fixture
+# temperature plus I*V*Rth, which kinset corrects for before fitting.
+self_heating: correct
 accuracy:
   voltage: {{gain: 1.0e-4, offset_V: 1.0e-4}}
   current: {{gain: 5.0e-4, offset_A: 1.0e-9}}
@@ -558,7 +564,8 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
     ----------
     out : str or Path
         Folder to write; created if needed. Files a previous demo wrote there (the
-        names this function uses) are replaced; other files are left alone.
+        names this function uses) are replaced; other files are left alone. A
+        ``reel.yaml`` that the demo did not write is never overwritten.
     devices : int
         Number of devices on the reel (at least 20).
     seed : int
@@ -569,6 +576,11 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
     -------
     Path
         The folder.
+
+    Raises
+    ------
+    FileExistsError
+        When ``out`` holds a ``reel.yaml`` that is not a demo's.
     """
     out = Path(out)
     devices = int(devices)
@@ -582,6 +594,10 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
     files.update(_leakage_files(p, seed, reel))
     files.update(_capacitance_files(p, seed, reel))
     files.update(_recovery_files(p, seed, reel))
+    existing = out / "reel.yaml"
+    if existing.is_file() and not existing.read_bytes().startswith(_YAML_MARK.encode()):
+        raise FileExistsError(f"{existing} exists and was not written by kinset demo; "
+                              f"choose a new or empty folder for the demo reel")
     out.mkdir(parents=True, exist_ok=True)
     for pattern in _OWNED:
         for old in out.glob(pattern):

@@ -46,6 +46,7 @@ class ForwardSettings:
     activation_energy: float       # EG [eV]
     xti: float                     # [1]
     thermal_resistance: float      # [K/W]
+    correct_self_heating: bool = False   # junction at ambient + I·V·Rth per reading
 
 
 def _model(lnis, n, rs, lni, cur, lt, theta_m1, vt, xti, eg):
@@ -238,6 +239,9 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
     usable = finite & (cur > 0)
     at_ilim, at_vlim = _plateaus(seg, cur, volt, usable)
     used = usable & ~at_ilim & ~at_vlim
+    d_t = np.where(usable, cur * volt * s.thermal_resistance, 0.0)
+    if s.correct_self_heating:
+        temp = temp + d_t      # steady-state DC reading: the junction runs warmer
 
     n_total = seg.counts
     n_nonpos, n_used = seg.count(nonpos), seg.count(used)
@@ -280,7 +284,6 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
             rms[fit_ids] = np.sqrt(ssr / m)
 
     # Self-heating: dT = I V Rth at each used point, and the shift it causes.
-    d_t = cur * volt * s.thermal_resistance
     p_pt = params[dev_codes]
     have = used & np.isfinite(p_pt).all(axis=1)
     tempco = np.full(len(cur), TEMPCO_NO_MODEL)
@@ -350,12 +353,16 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
                             f"{USUAL_N[0]}–{USUAL_N[1]}")
             if params[d, 2] == 0.0:
                 note.append("series resistance not resolved (RS at 0)")
-        if n_used[d] and shift_max[d] > SELF_HEATING_SHIFT_V:
+        if n_used[d] and shift_max[d] > SELF_HEATING_SHIFT_V and s.correct_self_heating:
+            note.append(f"junction temperature corrected for self-heating of up to "
+                        f"{heat_k[d]:.2g} K ({si(shift_max[d], 'V', 2)} at {si(shift_at[d], 'A')})")
+        elif n_used[d] and shift_max[d] > SELF_HEATING_SHIFT_V:
             if st == "ok":
                 st = "warning"
             note.append(f"self-heating up to {heat_k[d]:.2g} K shifts the forward voltage by "
                         f"about {si(shift_max[d], 'V', 2)} at {si(shift_at[d], 'A')}; pulse "
-                        f"the test or lower the current")
+                        f"the test, lower the current, or set 'self_heating: correct' "
+                        f"for DC readings")
         status.append(st)
         notes.append("; ".join(note))
 
