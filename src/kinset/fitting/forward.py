@@ -21,7 +21,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import grouped_normal_equations, inverse_diagonal, solve_stack
+from kinset.fitting.batch import (group_summer, grouped_normal_equations, inverse_diagonal,
+                                  solve_stack)
 from kinset.format import si
 from kinset.physics.constants import ZERO_CELSIUS, thermal_voltage
 from kinset.physics.forward import forward_voltage_tempco
@@ -111,13 +112,14 @@ def levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, xti, eg, p0,
     local_of[groups] = np.arange(len(groups))
     r, jac = evaluate(p[groups], groups, rows, local_of[idx[rows]])
     ssr = np.full(k, np.nan)
-    ssr[groups] = np.bincount(local_of[idx[rows]], r * r, minlength=len(groups))
+    li = local_of[idx[rows]]
+    total = group_summer(li, len(groups))
+    ssr[groups] = total(r * r)
     for _ in range(max_iter):
         if not len(groups):
             break
-        li = local_of[idx[rows]]
         g = len(groups)
-        jtj, jtr = grouped_normal_equations(li, jac, r, g)
+        jtj, jtr = grouped_normal_equations(li, jac, r, g, total)
         diag = np.einsum("kii->ki", jtj)
         a = jtj + lam[groups, None, None] * np.eye(3)[None] * diag[:, :, None]
         step = solve_stack(a, -jtr)
@@ -127,7 +129,7 @@ def levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, xti, eg, p0,
         trial[:, 1] = np.clip(trial[:, 1], *N_BOUNDS)
         trial[:, 2] = np.maximum(trial[:, 2], 0.0)
         r_new, jac_new = evaluate(trial, groups, rows, li)
-        new = np.bincount(li, r_new * r_new, minlength=g)
+        new = total(r_new * r_new)
         old = ssr[groups]
         better = new < old
         gain = np.where(better, (old - new) / np.maximum(old, 1e-300), 0.0)
@@ -147,6 +149,8 @@ def levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, xti, eg, p0,
             rows, r, jac = rows[row_keep], r[row_keep], jac[row_keep]
             local_of[:] = -1
             local_of[groups] = np.arange(len(groups))
+            li = local_of[idx[rows]]
+            total = group_summer(li, len(groups))
     return p, ssr, m, ok
 
 
@@ -287,7 +291,7 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
     p_pt = params[dev_codes]
     have = used & np.isfinite(p_pt).all(axis=1)
     tempco = np.full(len(cur), TEMPCO_NO_MODEL)
-    if have.any():
+    if have.any() and s.thermal_resistance > 0:
         tempco[have] = forward_voltage_tempco(
             cur[have], np.exp(p_pt[have, 0]), p_pt[have, 1], p_pt[have, 2], temp[have],
             s.reference_temperature, s.activation_energy, s.xti)
@@ -304,8 +308,12 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
     t_max = seg.max(np.where(used, temp, np.nan))
     pos = points["position"].to_numpy(dtype=float)[order]
     pos_min, pos_max = seg.min(pos), seg.max(pos)
-    src_codes = pd.factorize(points["source"].astype(str).to_numpy()[order])[0]
-    n_files = seg.distinct(src_codes, np.ones(len(src_codes), dtype=bool))
+    # Each file's rows are contiguous in the input, so after the stable sort a device's
+    # rows change file exactly (files − 1) times.
+    src = points["source"].astype(str).to_numpy()[order]
+    change = np.zeros(len(src), dtype=bool)
+    change[1:] = (src[1:] != src[:-1]) & (dev_codes[1:] == dev_codes[:-1])
+    n_files = 1 + seg.count(change)
 
     fitted_ok = np.isfinite(params).all(axis=1)
     status, notes = [], []
