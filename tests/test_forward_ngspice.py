@@ -20,6 +20,7 @@ import sys
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 from scipy.optimize import brentq
 
@@ -177,3 +178,34 @@ def test_live_ngspice_reproduces_committed_data(tmp_path):
         if case.sweep:
             _check_recovery(case, read_forward(live))
     _check_banwell_jayakumar(tmp_path / BJ_POINT.name)
+
+
+def test_cli_extract_on_a_reel_of_ngspice_parts(tmp_path):
+    """End to end through `kinset extract forward` on a reel folder of ngspice-simulated
+    silicon parts, some simulated at 35 °C (ngspice 39, Debian, reference simulator):
+    the issue's acceptance limits, IS within 10 %, N within 1 %, RS within 8 %."""
+    import re
+    import shutil
+    import subprocess
+    import sys
+    reel = tmp_path / "reel"
+    (reel / "forward").mkdir(parents=True)
+    (reel / "reel.yaml").write_text("material: silicon\nthermal_resistance_K_per_W: 0\n")
+    cards = {}
+    for name in ("si_switching_a", "si_switching_a_35C", "si_switching_b", "si_low_current",
+                 "bj_card_sweep"):
+        src = REFERENCE / f"{name}.csv"
+        shutil.copy(src, reel / "forward" / src.name)
+        card = re.search(r"IS=(\S+) N=(\S+) RS=(\S+)", src.read_text()).groups()
+        cards[name] = tuple(float(x) for x in card)
+    out = tmp_path / "forward.csv"
+    r = subprocess.run([sys.executable, "-m", "kinset", "extract", "forward", "--reel", str(reel),
+                        "-o", str(out)], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    table = pd.read_csv(out).set_index("device")
+    assert set(table.index) == set(cards)
+    for name, (i_s, n, rs) in cards.items():
+        row = table.loc[name]
+        assert row["is_A"] == pytest.approx(i_s, rel=0.10)
+        assert row["n"] == pytest.approx(n, rel=0.01)
+        assert row["rs_ohm"] == pytest.approx(rs, rel=0.08)

@@ -53,3 +53,9 @@ def test_yaml_is_loaded_safely(write, tmp_path):
 def test_missing_reel_yaml(tmp_path):
     with pytest.raises(InputError, match="no reel.yaml"):
         load_reel(tmp_path)
+
+
+def test_exponent_without_dot_is_a_number(write, tmp_path):
+    # YAML 1.2 reads 1e-4 as a number; PyYAML's 1.1 rules would read it as text.
+    write("reel.yaml", "material: silicon\nleakage: {breakdown_current_A: 1e-4}\n")
+    assert load_reel(tmp_path).settings["leakage"]["breakdown_current_A"] == 1e-4

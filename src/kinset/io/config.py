@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import copy
 import json
+import re
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
@@ -17,6 +18,25 @@ import jsonschema
 import yaml
 
 from kinset.errors import InputError
+
+
+class _Loader(yaml.SafeLoader):
+    """The safe loader, reading ``1e-9`` as a number.
+
+    YAML 1.1 (PyYAML) takes a float only with a dot (``1.0e-9``); engineers write
+    ``1e-9``, and YAML 1.2 reads it as a number, so this loader does too.
+    """
+
+
+_Loader.add_implicit_resolver(
+    "tag:yaml.org,2002:float",
+    re.compile(r"""^(?:[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?(?:[eE][-+]?[0-9]+)
+                |[-+]?\.[0-9_]+(?:[eE][-+][0-9]+)?
+                |[-+]?[0-9][0-9_]*(?::[0-5]?[0-9])+\.[0-9_]*
+                |[-+]?\.(?:inf|Inf|INF)
+                |\.(?:nan|NaN|NAN)
+                |[-+]?(?:[0-9][0-9_]*)\.[0-9_]*)$""", re.X),
+    list("-+0123456789."))
 
 
 def schema_path(kind: str) -> Path:
@@ -54,8 +74,8 @@ def read_yaml(path: str | Path) -> tuple[Any, dict]:
     except UnicodeDecodeError:
         raise InputError("file is not valid UTF-8 text", path) from None
     try:
-        node = yaml.compose(text, Loader=yaml.SafeLoader)
-        data = yaml.safe_load(text)
+        node = yaml.compose(text, Loader=_Loader)
+        data = yaml.load(text, Loader=_Loader)  # noqa: S506 - _Loader is a SafeLoader
     except yaml.MarkedYAMLError as exc:
         line = exc.problem_mark.line + 1 if exc.problem_mark else None
         context = ""
