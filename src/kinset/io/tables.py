@@ -191,14 +191,17 @@ def to_number(cells: pd.Series, lines: np.ndarray, path: str, column: str,
     return values
 
 
-def _stripped_text(column: pd.Series) -> pd.Series:
-    """Text cells without surrounding blanks (stripping only the distinct values)."""
+def _stripped_text(column: pd.Series) -> np.ndarray:
+    """Text cells without surrounding blanks, as an object array.
+
+    A categorical column (the fast path) is stripped once per distinct value.
+    """
     if isinstance(column.dtype, pd.CategoricalDtype):
-        cats = np.asarray([str(c).strip() for c in column.cat.categories], dtype=object)
+        cats = column.cat.categories.to_numpy(dtype=object)
+        stripped = np.array([str(c).strip() for c in cats] + [""], dtype=object)
         codes = column.cat.codes.to_numpy()
-        values = np.where(codes >= 0, cats[np.maximum(codes, 0)] if len(cats) else "", "")
-        return pd.Series(values.astype(object), index=column.index)
-    return column.astype(str).str.strip()
+        return stripped[np.where(codes >= 0, codes, len(cats))]
+    return column.astype(str).str.strip().to_numpy(dtype=object)
 
 
 def _choose(specs: list[Spec], cols: list[str]) -> Spec:
@@ -245,11 +248,11 @@ def read_table(path: str | Path, spec: Spec | list[Spec]) -> pd.DataFrame:
         if name in cols:
             s = _stripped_text(cells[name])
             if name in spec.required_text:
-                empty = (s == "").to_numpy()
+                empty = s == ""
                 if empty.any():
                     i = int(np.flatnonzero(empty)[0])
                     raise InputError(f"'{name}' is empty", path, int(lines[i]), name)
-            out[name] = s.to_numpy(dtype=object)
+            out[name] = s
     for name in spec.integer:
         if name in cols:
             v = to_number(cells[name], lines, path, name, allow_empty=True)
