@@ -1,4 +1,4 @@
-# kinset workflow: extraction per dataset, then devices.csv, for one reel.
+# kinset workflow for one reel: extraction per dataset, devices.csv, matching per application.
 #   snakemake --cores 2                              # the demo reel in data_demo/
 #   snakemake --cores 2 --config reel=PATH           # another reel
 from snakemake.utils import min_version, validate
@@ -15,12 +15,17 @@ OUT = str(PLAN.out)
 wildcard_constraints:
     dataset="forward|leakage|capacitance|recovery",
     bucket=BUCKET_PATTERN,
+    application=BUCKET_PATTERN,
 
 
 include: "rules/common.smk"
 include: "rules/parse.smk"
 include: "rules/forward.smk"
+include: "rules/leakage.smk"
+include: "rules/recovery.smk"
+include: "rules/capacitance.smk"
 include: "rules/devices.smk"
+include: "rules/match.smk"
 
 
 rule all:

@@ -10,3 +10,27 @@ def reel_folder(wildcards, input):
 
 def bucket_inputs(wildcards):
     return PLAN.bucket_files(wildcards.dataset, wildcards.bucket)
+
+
+def application_profile(wildcards):
+    return PLAN.profile(wildcards.application)
+
+
+def results_folder(wildcards, input):
+    return os.path.dirname(input.devices)
+
+
+def output_folder(wildcards, output):
+    return os.path.dirname(output.sets)
+
+
+def vna_inputs(wildcards):
+    return PLAN.vna_files(wildcards.group)
+
+
+def vna_devices(wildcards):
+    return PLAN.vna_devices(wildcards.group)
+
+
+def vna_rows(wildcards):
+    return PLAN.vna_digest(wildcards.group)

@@ -1,4 +1,6 @@
 # devices.csv: every device seen in any dataset, one row each.
+# reel.json: the validated reel settings with defaults (accuracy for guard bands, reel
+# facts for the report); an edit of reel.yaml reruns this and matching, not extraction.
 
 
 rule devices:
@@ -19,3 +21,24 @@ rule devices:
         "../envs/kinset.yaml"
     shell:
         "{params.python} -m kinset devices -o {output} {input} 2> {log}"
+
+
+rule reel_settings:
+    input:
+        reel=PLAN.reel_yaml,
+    output:
+        f"{OUT}/reel.json",
+    log:
+        f"{OUT}/logs/reel_settings.log",
+    params:
+        python=PYTHON,
+        version=VERSION,
+        reel=reel_folder,
+    threads: 1
+    resources:
+        mem_mb=500,
+        runtime=5,
+    conda:
+        "../envs/kinset.yaml"
+    shell:
+        "{params.python} -m kinset check-reel --reel {params.reel:q} -o {output} 2> {log}"

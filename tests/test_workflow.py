@@ -68,13 +68,15 @@ def test_workflow_runs_and_reruns_only_what_changed(tmp_path):
     assert planned_jobs(tmp_path) == {"parse": 1, "extract_forward": 1, "devices": 1, "all": 1}
     assert snakemake(tmp_path).returncode == 0
 
-    # An edit of reel.yaml that no extraction uses reruns nothing ...
+    # An edit of reel.yaml that no extraction uses reruns only its settings copy ...
     reel_yaml = tmp_path / "reel" / "reel.yaml"
     reel_yaml.write_text(reel_yaml.read_text().replace("test part", "another part"))
-    assert planned_jobs(tmp_path) == {}
+    assert planned_jobs(tmp_path) == {"reel_settings": 1, "all": 1}
+    assert snakemake(tmp_path).returncode == 0
     # ... while the reference temperature reruns the fit, not the parsing.
     reel_yaml.write_text(reel_yaml.read_text() + "reference_temperature_C: 27\n")
-    assert planned_jobs(tmp_path) == {"extract_forward": 1, "devices": 1, "all": 1}
+    assert planned_jobs(tmp_path) == {"extract_forward": 1, "devices": 1, "reel_settings": 1,
+                                      "all": 1}
 
 
 def test_lint_is_clean(tmp_path):

@@ -15,6 +15,11 @@ def _cmd_parse(args) -> None:
     from kinset.io.datasets import READERS
     from kinset.io.parsed import save_parsed
     import pandas as pd
+    if args.dataset == "capacitance_vna":   # index.csv -> one capacitance point per Touchstone file
+        from kinset.extract import capacitance_vna_points
+        save_parsed(pd.concat([capacitance_vna_points(f, devices=args.devices) for f in args.files],
+                              ignore_index=True), args.output)
+        return
     frames = [READERS[args.dataset](f) for f in args.files]
     save_parsed(pd.concat(frames, ignore_index=True), args.output)
 
@@ -39,6 +44,41 @@ def _cmd_devices(args) -> None:
     from kinset.merge import merge_devices
     tables = {Path(f).stem: read_result(f) for f in args.tables}
     write_csv(merge_devices(tables), args.output)
+
+
+def _cmd_check_reel(args) -> None:
+    import json
+    from kinset.io.reel import load_reel
+    reel = load_reel(args.reel)
+    text = json.dumps(reel.settings, indent=2, sort_keys=True) + "\n"
+    if args.output:     # the validated settings, for matching and the report
+        target = Path(args.output)
+        target.parent.mkdir(parents=True, exist_ok=True)
+        tmp = target.with_name(target.name + ".tmp")
+        tmp.write_text(text, encoding="utf-8")
+        tmp.replace(target)
+    print(f"{reel.folder / 'reel.yaml'}: valid (reel id {reel.id})", file=sys.stderr)
+
+
+def _cmd_match(args) -> None:
+    from kinset.matching.run import run_match, summary_line
+    result = run_match(args.results, args.application, args.output)
+    print(summary_line(result.summary), file=sys.stderr)
+
+
+def _cmd_partners(args) -> None:
+    import pandas as pd
+    from kinset.matching.profile import load_profile
+    from kinset.matching.run import partners, read_results
+    tables, devices, reel = read_results(args.results)
+    application = args.application or next(iter(reel.get("applications", [])), None)
+    if application is None:
+        raise InputError("give --application (the reel lists no applications)")
+    table = partners(tables, devices, load_profile(application), args.device,
+                     reel.get("accuracy"), args.top)
+    with pd.option_context("display.width", 200, "display.max_columns", 50):
+        print(f"best partners for {args.device} under {application}:")
+        print(table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
 
 
 def _cmd_demo(args) -> None:
@@ -68,15 +108,38 @@ def build_parser() -> argparse.ArgumentParser:
         k.set_defaults(func=_cmd_extract)
 
     r = sub.add_parser("parse", help="read input files into SI arrays (a workflow step)")
-    r.add_argument("dataset", choices=["forward", "leakage", "capacitance", "recovery"])
+    r.add_argument("dataset", choices=["forward", "leakage", "capacitance", "recovery",
+                                       "capacitance_vna"],
+                   help="capacitance_vna: FILES is capacitance/index.csv; each Touchstone "
+                   "file it lists becomes one capacitance point")
     r.add_argument("-o", "--output", required=True, help="output .npz")
     r.add_argument("files", nargs="+")
+    r.add_argument("--devices", nargs="+", help="capacitance_vna: only these devices' rows")
     r.set_defaults(func=_cmd_parse)
 
     d = sub.add_parser("devices", help="merge dataset tables into devices.csv")
     d.add_argument("-o", "--output", required=True)
     d.add_argument("tables", nargs="+", help="dataset tables, named <dataset>.csv")
     d.set_defaults(func=_cmd_devices)
+
+    v = sub.add_parser("check-reel", help="validate reel.yaml; optionally write its settings "
+                       "with every default filled in (JSON)")
+    v.add_argument("--reel", required=True)
+    v.add_argument("-o", "--output", help="where to write the settings (JSON)")
+    v.set_defaults(func=_cmd_check_reel)
+
+    a = sub.add_parser("match", help="form the matched sets of one application")
+    a.add_argument("--results", required=True, help="folder holding the extraction tables")
+    a.add_argument("--application", required=True, help="shipped profile name or YAML path")
+    a.add_argument("-o", "--output", required=True, help="output folder (sets.csv, unmatched.csv)")
+    a.set_defaults(func=_cmd_match)
+
+    b = sub.add_parser("partners", help="best partners for one part (a replacement)")
+    b.add_argument("--results", required=True)
+    b.add_argument("--device", required=True)
+    b.add_argument("--application", help="profile (default: the reel's first application)")
+    b.add_argument("--top", type=int, default=10)
+    b.set_defaults(func=_cmd_partners)
 
     m = sub.add_parser("demo", help="write a synthetic reel folder")
     m.add_argument("--out", required=True)

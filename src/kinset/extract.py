@@ -6,6 +6,7 @@ This is what ``kinset extract`` and the workflow rules call. It wires readers
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -22,6 +23,10 @@ from kinset.io.reel import Reel
 SETTINGS_USED = {
     "forward": ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV",
                 "xti", "thermal_resistance_K_per_W", "self_heating"),
+    "capacitance": ("reference_temperature_C", "ambient_temperature_C", "accuracy", "capacitance"),
+    "leakage": ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
+                "accuracy", "leakage"),
+    "recovery": ("recovery",),
 }
 
 
@@ -66,8 +71,135 @@ def extract_forward(reel: Reel, files: list[str | Path]) -> Extraction:
     return Extraction(table, {"readings": readings})
 
 
+def capacitance_settings(reel: Reel):
+    """The C–V fit's settings from reel.yaml (:class:`kinset.fitting.capacitance.CapacitanceSettings`)."""
+    from kinset.fitting.capacitance import CapacitanceSettings
+    accuracy = reel.settings["accuracy"]["capacitance"]
+    own = reel.settings["capacitance"]
+    if not own["vj_range_V"][0] < own["vj_range_V"][1]:
+        raise InputError("the lower bound of VJ must be below the upper bound",
+                         reel.folder / "reel.yaml", column="capacitance.vj_range_V")
+    return CapacitanceSettings(
+        reference_temperature=reel.reference_temperature,
+        ambient_temperature=reel.ambient_temperature,
+        accuracy_gain=accuracy["gain"], accuracy_offset=accuracy["offset_F"],
+        package_capacitance=own["package_capacitance"] == "fit",
+        vj_range=tuple(own["vj_range_V"]),
+    )
+
+
+def capacitance_vna_points(index: str | Path, devices: list[str] | None = None,
+                           files: list[str | Path] | None = None) -> pd.DataFrame:
+    """One capacitance point per Touchstone file that ``index.csv`` lists (for the given
+    devices or files; default all): what ``kinset parse capacitance_vna`` stores."""
+    from kinset.fitting.capacitance import sweep_capacitance
+    from kinset.io.touchstone import read_vna
+    return sweep_capacitance(read_vna(index, devices=devices, files=files))
+
+
+def _capacitance_points(reel: Reel, files: list[str | Path]) -> pd.DataFrame:
+    """C–V readings and VNA points from raw files, parsed files, or the whole reel."""
+    from kinset.fitting.capacitance import sweep_capacitance
+    from kinset.io.datasets import read_capacitance
+    from kinset.io.parsed import load_parsed
+    from kinset.io.touchstone import (INDEX_NAME, TOUCHSTONE_NAME, read_vna_index,
+                                      unlisted_measurements, unlisted_touchstone)
+    folder = reel.folder / "capacitance"
+    index = folder / INDEX_NAME
+    frames: list[pd.DataFrame] = []
+    touchstone: list[str] = []
+    if not files:
+        frames += [read_capacitance(f) for f in reel.dataset_files("capacitance")]
+        if index.is_file():
+            frames.append(capacitance_vna_points(index))
+        listed = read_vna_index(index) if index.is_file() else None
+        frames.append(sweep_capacitance(unlisted_measurements(unlisted_touchstone(folder, listed))))
+        if not any(len(f) for f in frames):
+            raise InputError("no capacitance files found (C–V tables, or Touchstone files "
+                             "with index.csv)", folder)
+    for f in map(str, files):
+        if f.endswith(".npz"):
+            frames.append(load_parsed(f))
+        elif Path(f).name == INDEX_NAME:
+            frames.append(capacitance_vna_points(f))
+        elif TOUCHSTONE_NAME.search(f):
+            touchstone.append(f)
+        else:
+            frames.append(read_capacitance(f))
+    if touchstone:   # through the reel's index; files it does not list are reported
+        listed = read_vna_index(index) if index.is_file() else None
+        named = set() if listed is None else set(listed["path"])
+        if named:
+            frames.append(capacitance_vna_points(index, files=touchstone))
+        frames.append(sweep_capacitance(unlisted_measurements(
+            [Path(f) for f in touchstone if os.path.normpath(f) not in named])))
+    frames = [f for f in frames if len(f)] or frames[:1]
+    return pd.concat(frames, ignore_index=True)
+
+
+def extract_capacitance(reel: Reel, files: list[str | Path]) -> Extraction:
+    """Fit CJO, VJ, M of every device with C–V table or VNA capacitance points.
+
+    ``files`` may be C–V tables, ``index.csv`` (its Touchstone files are read), Touchstone
+    files of the reel (looked up in its index) and parsed ``.npz`` files; none: the
+    whole capacitance folder. Gives ``capacitance.csv`` and ``capacitance_points.csv``
+    (every point, with whether it entered the fit and, for VNA points, the R–L–C fit).
+    """
+    from kinset.fitting.capacitance import fit_capacitance
+    table, points = fit_capacitance(_capacitance_points(reel, list(files)),
+                                    capacitance_settings(reel))
+    return Extraction(table, {"points": points})
+
+
+def leakage_settings(reel: Reel):
+    """The leakage fit's settings from reel.yaml (:class:`kinset.fitting.leakage.LeakageSettings`)."""
+    from kinset.fitting.leakage import LeakageSettings, temperature_law
+    eg, xti, n, law = temperature_law(reel.settings["material"], reel.eg, reel.xti)
+    own = reel.settings["leakage"]
+    accuracy = reel.settings["accuracy"]["current"]
+    return LeakageSettings(
+        reference_temperature=reel.reference_temperature,
+        ambient_temperature=reel.ambient_temperature,
+        report_voltages=tuple(float(v) for v in own["report_at_V"]),
+        breakdown_current=own["breakdown_current_A"],
+        activation_energy=eg, law_xti=xti, law_n=n, law=law,
+        current_gain=accuracy["gain"], current_offset=accuracy["offset_A"],
+    )
+
+
+def extract_leakage(reel: Reel, files: list[str | Path]) -> Extraction:
+    """Leakage at the report voltages, bv and the leakage model of every device.
+
+    Gives ``leakage.csv``.
+    """
+    from kinset.fitting.leakage import fit_leakage
+    points = read_inputs("leakage", _inputs(reel, "leakage", files))
+    return Extraction(fit_leakage(points, leakage_settings(reel)))
+
+
+def recovery_settings(reel: Reel):
+    """The recovery analysis's settings (:class:`kinset.fitting.recovery.RecoverySettings`)."""
+    from kinset.fitting.recovery import RecoverySettings
+    own = reel.settings["recovery"]
+    return RecoverySettings.from_end(own["forward_current_A"], own["reverse_current_A"],
+                                     own["end"])
+
+
+def extract_recovery(reel: Reel, files: list[str | Path]) -> Extraction:
+    """trr, ta, tb, Irrm, Qrr, softness and TT of every device with a waveform.
+
+    Gives ``recovery.csv``.
+    """
+    from kinset.fitting.recovery import fit_recovery
+    points = read_inputs("recovery", _inputs(reel, "recovery", files))
+    return Extraction(fit_recovery(points, recovery_settings(reel)))
+
+
 # Dataset -> its extraction. The CLI's `kinset extract <dataset>` and the workflow's
 # datasets come from here; SETTINGS_USED above names the reel keys each one reads.
 EXTRACTORS: dict[str, Callable[[Reel, list], Extraction]] = {
     "forward": extract_forward,
+    "capacitance": extract_capacitance,
+    "leakage": extract_leakage,
+    "recovery": extract_recovery,
 }

@@ -16,8 +16,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from kinset import __version__
+from kinset.errors import InputError
 from kinset.extract import EXTRACTORS, SETTINGS_USED
 from kinset.io.reel import Reel, load_reel
+from kinset.matching.profile import resolve_profile
 
 SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 BUCKET_PATTERN = r"[A-Za-z0-9][A-Za-z0-9._-]*"
@@ -43,6 +45,11 @@ class Plan:
     results: Path
     max_jobs: int
     buckets: dict[str, dict[str, list[str]]] = field(default_factory=dict)
+    applications: dict[str, str] = field(default_factory=dict)   # output name -> profile path
+    # VNA capacitance: job name -> {"devices", "files", "digest"} (see vna_groups), and
+    # Touchstone files that capacitance/index.csv does not list.
+    vna: dict[str, dict] = field(default_factory=dict)
+    vna_unlisted: list[str] = field(default_factory=list)
 
     @property
     def out(self) -> Path:
@@ -54,7 +61,24 @@ class Plan:
 
     @property
     def datasets(self) -> list[str]:
-        return [d for d in EXTRACTORS if self.buckets.get(d)]
+        return [d for d in EXTRACTORS if self.buckets.get(d)
+                or (d == "capacitance" and (self.vna or self.vna_unlisted))]
+
+    @property
+    def vna_index(self) -> str:
+        return str(self.reel.folder / "capacitance" / "index.csv")
+
+    def vna_files(self, group: str) -> list[str]:
+        return self.vna[group]["files"]
+
+    def vna_devices(self, group: str) -> list[str]:
+        return self.vna[group]["devices"]
+
+    def vna_digest(self, group: str) -> str:
+        return self.vna[group]["digest"]
+
+    def parsed_vna(self) -> list[str]:
+        return [str(self.out / "parsed" / "capacitance_vna" / f"{g}.npz") for g in sorted(self.vna)]
 
     def bucket_files(self, dataset: str, bucket: str) -> list[str]:
         return self.buckets[dataset][bucket]
@@ -72,7 +96,13 @@ class Plan:
     def targets(self) -> list[str]:
         out = [str(self.out / f"{d}.csv") for d in self.datasets]
         out.append(str(self.out / "devices.csv"))
+        out.append(str(self.out / "reel.json"))
+        for name in self.applications:
+            out += [str(self.out / name / f) for f in ("sets.csv", "unmatched.csv", "summary.json")]
         return out
+
+    def profile(self, application: str) -> str:
+        return self.applications[application]
 
 
 def make_plan(config: dict) -> Plan:
@@ -86,11 +116,74 @@ def make_plan(config: dict) -> Plan:
         for f in files:
             groups.setdefault(bucket_of(f.name, len(files), plan.max_jobs), []).append(str(f))
         plan.buckets[dataset] = groups
+    plan.vna, plan.vna_unlisted = vna_groups(reel, plan.max_jobs)
+    wanted = config.get("application")
+    if wanted is None:
+        wanted = reel.settings["applications"]
+    elif isinstance(wanted, str):
+        wanted = [w.strip() for w in wanted.split(",") if w.strip()]
+    for item in wanted:
+        path = resolve_profile(item, reel.folder)
+        name = path.stem
+        if name in plan.applications and plan.applications[name] != str(path):
+            raise InputError(f"two application profiles are both named '{name}'", path)
+        plan.applications[name] = str(path)
     if not plan.datasets:
-        from kinset.errors import InputError
         raise InputError("the reel folder holds no dataset files "
                          f"(expected CSV files in {', '.join(EXTRACTORS)}/)", reel.folder)
     return plan
+
+
+# Touchstone files are small and many (one per device and bias). A job per device would
+# pay a process start (~1 s) for a few milliseconds of reading, so devices go into this
+# many stable buckets by a CRC-32 of their id: a new file reruns one bucket.
+VNA_JOBS = 8
+
+
+def vna_groups(reel: Reel, max_jobs: int) -> tuple[dict[str, dict], list[str]]:
+    """Jobs that turn the Touchstone files of ``capacitance/index.csv`` into capacitance points.
+
+    Devices are spread over ``min(VNA_JOBS, max_jobs)`` buckets by a CRC-32 of the
+    device id (never by position), so a new file touches only its device's bucket.
+    Each job lists as inputs its devices' files and the empty-fixture files they need
+    (those that exist: a missing one is reported by the job), and a digest of its
+    index rows, so an edited row reruns that job alone.
+
+    Returns
+    -------
+    groups : dict
+        job name -> ``{"devices": [...], "files": [...], "digest": str}``
+    unlisted : list of str
+        Touchstone files in the capacitance folder that the index does not name.
+    """
+    from kinset.io.touchstone import INDEX_NAME, match_opens, read_vna_index, unlisted_touchstone
+    folder = reel.folder / "capacitance"
+    path = folder / INDEX_NAME
+    if not path.is_file():
+        return {}, [str(p) for p in unlisted_touchstone(folder, None)]
+    index = read_vna_index(path)
+    open_row, _ = match_opens(index)
+    records = index[["file", "device", "reverse_voltage", "fixture", "temperature"]].astype(str)
+    records = records.to_numpy().tolist()
+    paths = index["path"].tolist()
+    n_jobs = max(1, min(VNA_JOBS, max_jobs))
+    groups: dict[str, dict] = {}
+    for i, (dev, is_open) in enumerate(zip(index["device"], index["is_open"])):
+        if is_open:
+            continue
+        name = f"vna-{zlib.crc32(dev.encode()) % n_jobs:02d}"
+        g = groups.setdefault(name, {"devices": set(), "rows": set()})
+        g["devices"].add(dev)
+        g["rows"].add(i)
+        if open_row[i] >= 0:
+            g["rows"].add(int(open_row[i]))
+    for g in groups.values():
+        used = sorted(g.pop("rows"))
+        g["devices"] = sorted(g["devices"])
+        g["files"] = sorted({paths[i] for i in used if Path(paths[i]).is_file()})
+        text = json.dumps([records[i] for i in used])
+        g["digest"] = hashlib.sha256(text.encode()).hexdigest()[:16]
+    return groups, [str(p) for p in unlisted_touchstone(folder, index)]
 
 
 PYTHON = sys.executable

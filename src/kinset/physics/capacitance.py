@@ -15,6 +15,10 @@ References
    Berkeley, 1975 (the diode depletion-capacitance law and its forward-bias
    linearisation beyond FC·VJ); the same law is in the ngspice manual, section
    "Junction Diodes".
+.. [3] K. Kurokawa, "Power waves and the scattering matrix", IEEE Transactions on
+   Microwave Theory and Techniques 13(2), 194-202, 1965. doi:10.1109/TMTT.1965.1125964
+   (scattering parameters of a one-port and of series and shunt two-ports between
+   real reference impedances).
 """
 
 from __future__ import annotations
@@ -132,3 +136,159 @@ def reflection_coefficient(impedance, reference_impedance=50.0):
     with np.errstate(invalid="ignore"):
         gamma = (z - z0) / (z + z0)
     return np.where(open_, 1.0 + 0.0j, gamma)
+
+
+# --------------------------------------------------------------------------- from S to Y
+# A diode measured with a vector network analyser sits in one of three fixtures. Each
+# function below gives the device's admittance Y [S] from the measured scattering
+# parameter and its derivative dY/dS, which tells how strongly noise on S is amplified
+# (the conditioning of the measurement at each frequency). Admittances rather than
+# impedances are returned because the empty fixture is subtracted as an admittance
+# (its parasitics sit in parallel with the device) and because an open (Y = 0) stays finite.
+
+FIXTURES = ("reflection", "series", "shunt")
+
+
+def _z0_pair(reference_impedance, reference_impedance_2):
+    z1 = np.asarray(reference_impedance, dtype=complex)
+    z2 = z1 if reference_impedance_2 is None else np.asarray(reference_impedance_2, dtype=complex)
+    return z1, z2
+
+
+def reflection_admittance(s11, reference_impedance=50.0):
+    """Admittance of a one-port from its reflection coefficient.
+
+    Parameters
+    ----------
+    s11 : array_like of complex
+        Reflection coefficient S11 looking into the device [1].
+    reference_impedance : array_like, optional
+        Real reference impedance Z0 of the port [Ohm].
+
+    Returns
+    -------
+    admittance : numpy.ndarray of complex
+        Y [S].
+    derivative : numpy.ndarray of complex
+        dY/dS11 [S].
+
+    Notes
+    -----
+    From :math:`S_{11} = (Z - Z_0)/(Z + Z_0)` [3]:
+
+    .. math:: Z = Z_0\\frac{1 + S_{11}}{1 - S_{11}}, \\qquad
+              Y = \\frac{1 - S_{11}}{Z_0 (1 + S_{11})}, \\qquad
+              \\frac{dY}{dS_{11}} = \\frac{-2}{Z_0 (1 + S_{11})^2} .
+    """
+    s, z0 = np.broadcast_arrays(np.asarray(s11, dtype=complex),
+                                np.asarray(reference_impedance, dtype=complex))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        y = (1.0 - s) / (z0 * (1.0 + s))
+        dy = -2.0 / (z0 * (1.0 + s) ** 2)
+    return y, dy
+
+
+def series_admittance(s21, reference_impedance=50.0, reference_impedance_2=None):
+    """Admittance of a device in series between the two ports of a fixture.
+
+    Parameters
+    ----------
+    s21 : array_like of complex
+        Transmission coefficient S21 [1].
+    reference_impedance : array_like, optional
+        Real reference impedance of port 1, Z01 [Ohm].
+    reference_impedance_2 : array_like, optional
+        Real reference impedance of port 2, Z02 [Ohm]; default Z01.
+
+    Returns
+    -------
+    admittance : numpy.ndarray of complex
+        Y [S].
+    derivative : numpy.ndarray of complex
+        dY/dS21 [S].
+
+    Notes
+    -----
+    A series impedance Z between real reference impedances gives [3]
+    :math:`S_{21} = 2\\sqrt{Z_{01}Z_{02}}/(Z + Z_{01} + Z_{02})`, so with
+    :math:`k = 2\\sqrt{Z_{01}Z_{02}}`
+
+    .. math:: Z = \\frac{k}{S_{21}} - Z_{01} - Z_{02}, \\qquad
+              Y = \\frac{S_{21}}{k - S_{21}(Z_{01} + Z_{02})}, \\qquad
+              \\frac{dY}{dS_{21}} = \\frac{k}{(k - S_{21}(Z_{01} + Z_{02}))^2} ;
+
+    for equal ports :math:`Z = 2 Z_0 (1 - S_{21})/S_{21}`.
+    """
+    z1, z2 = _z0_pair(reference_impedance, reference_impedance_2)
+    s, z1, z2 = np.broadcast_arrays(np.asarray(s21, dtype=complex), z1, z2)
+    k = 2.0 * np.sqrt(z1 * z2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        den = k - s * (z1 + z2)
+        return s / den, k / den ** 2
+
+
+def shunt_admittance(s21, reference_impedance=50.0, reference_impedance_2=None):
+    """Admittance of a device from the line to ground in a two-port fixture.
+
+    Parameters
+    ----------
+    s21 : array_like of complex
+        Transmission coefficient S21 [1].
+    reference_impedance : array_like, optional
+        Real reference impedance of port 1, Z01 [Ohm].
+    reference_impedance_2 : array_like, optional
+        Real reference impedance of port 2, Z02 [Ohm]; default Z01.
+
+    Returns
+    -------
+    admittance : numpy.ndarray of complex
+        Y [S].
+    derivative : numpy.ndarray of complex
+        dY/dS21 [S].
+
+    Notes
+    -----
+    A shunt admittance Y between real reference impedances gives [3]
+    :math:`S_{21} = 2\\sqrt{Z_{01}Z_{02}}/(Z_{01} + Z_{02} + Y Z_{01} Z_{02})`, so with
+    :math:`k = 2\\sqrt{Z_{01}Z_{02}}`
+
+    .. math:: Y = \\frac{k - S_{21}(Z_{01} + Z_{02})}{S_{21} Z_{01} Z_{02}}, \\qquad
+              \\frac{dY}{dS_{21}} = \\frac{-k}{S_{21}^2 Z_{01} Z_{02}} ;
+
+    for equal ports :math:`Z = 1/Y = Z_0 S_{21} / (2 (1 - S_{21}))`.
+    """
+    z1, z2 = _z0_pair(reference_impedance, reference_impedance_2)
+    s, z1, z2 = np.broadcast_arrays(np.asarray(s21, dtype=complex), z1, z2)
+    k = 2.0 * np.sqrt(z1 * z2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return (k - s * (z1 + z2)) / (s * z1 * z2), -k / (s ** 2 * z1 * z2)
+
+
+def fixture_admittance(s, reference_impedance, fixture):
+    """Device admittance from a fixture's scattering matrix.
+
+    Parameters
+    ----------
+    s : array_like of complex, shape (..., ports, ports)
+        Scattering matrix per frequency [1]: one port for ``reflection``, two for
+        ``series`` and ``shunt`` (S21 is used).
+    reference_impedance : array_like, shape (..., ports)
+        Real reference impedance of each port [Ohm].
+    fixture : str
+        ``reflection``, ``series`` or ``shunt``.
+
+    Returns
+    -------
+    admittance, derivative : numpy.ndarray of complex
+        Y [S] and dY/dS [S] (see :func:`reflection_admittance`,
+        :func:`series_admittance`, :func:`shunt_admittance`).
+    """
+    s = np.asarray(s, dtype=complex)
+    z0 = np.asarray(reference_impedance, dtype=complex)
+    if fixture == "reflection":
+        return reflection_admittance(s[..., 0, 0], z0[..., 0])
+    if fixture == "series":
+        return series_admittance(s[..., 1, 0], z0[..., 0], z0[..., 1])
+    if fixture == "shunt":
+        return shunt_admittance(s[..., 1, 0], z0[..., 0], z0[..., 1])
+    raise ValueError(f"unknown fixture {fixture!r} (one of {', '.join(FIXTURES)})")

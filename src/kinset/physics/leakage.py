@@ -84,11 +84,11 @@ def reverse_current(reverse_voltage, shunt_resistance, generation_current, vj, m
             reverse_voltage, shunt_resistance, generation_current, vj, m, temperature,
             generation_ideality, breakdown_voltage, breakdown_current,
             breakdown_ideality)))
-    vt = thermal_voltage(t)
     valid = vr >= 0.0
     v = np.where(valid, vr, 0.0)
     shunt = np.where(np.isinf(rsh), 0.0, v / rsh)
-    generation = ig * (1.0 + v / v_j) ** m_ * -np.expm1(-v / (nr * vt))
+    generation = ig * generation_shape(v, v_j, m_, t, nr)
+    vt = thermal_voltage(t)
     a = nbv * vt
     # exp((v - bv)/a) - exp(-bv/a) written as exp((v - bv)/a) * (1 - exp(-v/a)), which
     # loses no digits near v = 0; BV = inf gives exp(-inf) = 0. The exponent is capped
@@ -131,3 +131,77 @@ def generation_temperature_factor(temperature, reference_temperature,
         temperature, reference_temperature, eg)))
     k_q = BOLTZMANN / ELEMENTARY_CHARGE
     return (t / t0) ** 1.5 * np.exp(e / (2.0 * k_q) * (1.0 / t0 - 1.0 / t))
+
+
+def generation_shape(reverse_voltage, vj, m, temperature, generation_ideality=2.0):
+    """Bias dependence of the generation current, relative to its zero-bias value.
+
+    Parameters
+    ----------
+    reverse_voltage : array_like
+        Reverse bias VR >= 0 [V].
+    vj : array_like
+        Junction potential VJ [V].
+    m : array_like
+        Exponent of the depletion width [1].
+    temperature : array_like
+        Junction temperature [K].
+    generation_ideality : array_like, optional
+        Emission coefficient of the generation current [1].
+
+    Returns
+    -------
+    numpy.ndarray
+        :math:`(1 + V_R/V_J)^M (1 - e^{-V_R/(N_R V_t)})` [1], the factor that multiplies
+        the generation current in :func:`reverse_current`.
+
+    Notes
+    -----
+    The first factor is the depletion width relative to its zero-bias value (Sze
+    and Ng [2], section 2.3), the second the Sah–Noyce–Shockley bias dependence [1].
+    """
+    vr, v_j, m_, t, nr = np.broadcast_arrays(*(np.asarray(a, dtype=float) for a in (
+        reverse_voltage, vj, m, temperature, generation_ideality)))
+    vt = thermal_voltage(t)
+    return (1.0 + vr / v_j) ** m_ * -np.expm1(-vr / (nr * vt))
+
+
+def leakage_temperature_factor(temperature, reference_temperature, activation_energy,
+                               xti, emission_coefficient):
+    """Ratio of a thermally activated leakage current at one temperature to another.
+
+    Parameters
+    ----------
+    temperature : array_like
+        Junction temperature [K].
+    reference_temperature : array_like
+        Temperature the current is known at [K].
+    activation_energy : array_like
+        EG [eV]: the band gap for a p-n junction, the barrier height for a Schottky.
+    xti : array_like
+        Temperature exponent of the prefactor [1].
+    emission_coefficient : array_like
+        N [1]: 2 for generation in the depletion layer, 1 for emission over a barrier.
+
+    Returns
+    -------
+    numpy.ndarray
+        :math:`I(T)/I(T_0)` [1].
+
+    Notes
+    -----
+    The SPICE saturation-current law [3] with emission coefficient N,
+
+    .. math::
+        \\frac{I(T)}{I(T_0)} = \\left(\\frac{T}{T_0}\\right)^{XTI/N}
+        \\exp\\left[\\frac{E_G}{N k/q}\\left(\\frac{1}{T_0} - \\frac{1}{T}\\right)\\right].
+
+    With N = 2 and XTI = 3 it is :func:`generation_temperature_factor`, the intrinsic
+    density :math:`n_i \\propto T^{3/2} e^{-E_G/(2kT)}` [1], [2]; with N = 1 and XTI = 2
+    it is thermionic emission over a Schottky barrier of height EG (Sze and Ng [2],
+    section 3.3), the usual SPICE values for a Schottky diode.
+    """
+    t, t0, e, x, n = np.broadcast_arrays(*(np.asarray(a, dtype=float) for a in (
+        temperature, reference_temperature, activation_energy, xti, emission_coefficient)))
+    k_q = BOLTZMANN / ELEMENTARY_CHARGE
+    return (t / t0) ** (x / n) * np.exp(e / (n * k_q) * (1.0 / t0 - 1.0 / t))

@@ -131,3 +131,27 @@ def recovery_waveform(time, forward_current, reverse_current, transit_time,
         exponent = np.where(tau > 0.0, _softplus(x, w) / np.where(tau > 0.0, tau, 1.0),
                             np.where(x > 0.0, np.inf, 0.0))
     return drive * np.exp(-exponent)
+
+
+def transit_time(storage_time_, forward_current, reverse_current):
+    """Transit time TT of the charge-control model from a measured storage time.
+
+    Parameters
+    ----------
+    storage_time_ : array_like
+        ts [s], from the current's zero crossing to the end of the storage phase.
+    forward_current : array_like
+        Forward current IF before the switch [A].
+    reverse_current : array_like
+        Magnitude of the reverse current IR during the storage phase [A].
+
+    Returns
+    -------
+    numpy.ndarray
+        TT [s], the inverse of :func:`storage_time`:
+        :math:`TT = t_s / \\ln(1 + I_F/I_R)` (Kingston [1]).
+    """
+    ts, i_f, i_r = np.broadcast_arrays(*(np.asarray(a, dtype=float) for a in (
+        storage_time_, forward_current, reverse_current)))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return ts / np.log1p(i_f / i_r)

@@ -1,0 +1,181 @@
+"""What a report is made from: the match outputs, the extraction tables, the reel, the profile.
+
+Every file read is fingerprinted (size, SHA-256, modification time) for the page's
+provenance section. Nothing here depends on the time of day or the working folder,
+so the same inputs always give the same report.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from kinset.errors import InputError
+from kinset.io.output import read_result
+from kinset.matching.profile import Profile, load_profile, shipped_profiles
+
+# Extraction tables the page draws from (those present are read), in display order.
+TABLES = ("forward", "forward_readings", "leakage", "capacitance", "capacitance_points",
+          "recovery")
+MATCH_FILES = ("sets.csv", "unmatched.csv", "summary.json")
+
+
+@dataclass(frozen=True)
+class InputFile:
+    """One file the report read."""
+
+    label: str        # shown on the page: the path relative to the results folder
+    size: int         # [byte]
+    sha256: str
+    mtime: float      # [s since the epoch]
+
+
+@dataclass
+class ReportInputs:
+    results: Path
+    match_folder: Path
+    profile: Profile
+    profile_text: str
+    profile_label: str
+    reel: dict
+    tables: dict[str, pd.DataFrame]
+    devices: pd.DataFrame
+    sets: pd.DataFrame
+    unmatched: pd.DataFrame
+    summary: dict
+    files: list[InputFile] = field(default_factory=list)
+
+    @property
+    def reel_id(self) -> str:
+        return str(self.reel.get("reel") or self.results.name)
+
+    @property
+    def newest_input(self) -> str:
+        """When the inputs last changed: the newest modification time, ISO 8601 in UTC."""
+        if not self.files:
+            return "n/a"
+        t = max(f.mtime for f in self.files)
+        return datetime.fromtimestamp(int(t), tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+    def table(self, name: str) -> pd.DataFrame | None:
+        return self.tables.get(name)
+
+    def positions(self) -> dict[str, object]:
+        """Pocket position of every device that has one (from devices.csv)."""
+        if "position" not in self.devices:
+            return {}
+        d = self.devices.dropna(subset=["position"])
+        return dict(zip(d["device"], d["position"]))
+
+
+def fingerprint(path: Path, label: str) -> InputFile:
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(block)
+    st = path.stat()
+    return InputFile(label, st.st_size, digest.hexdigest(), st.st_mtime)
+
+
+def _label(path: Path, results: Path) -> str:
+    try:
+        return path.resolve().relative_to(results.resolve()).as_posix()
+    except ValueError:
+        return path.name
+
+
+def _profile_label(profile: Profile) -> str:
+    """How the page names the profile file: shipped ones by name, others by file name."""
+    shipped = shipped_profiles().get(profile.name)
+    if shipped is not None and Path(shipped).resolve() == profile.path.resolve():
+        return f"kinset/applications/{profile.path.name} (shipped with kinset)"
+    return profile.path.name
+
+
+def _read_csv(path: Path, what: str) -> pd.DataFrame:
+    try:
+        return read_result(path)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read {what}: {exc}", path) from None
+
+
+def _need(frame: pd.DataFrame, columns: tuple[str, ...], path: Path) -> None:
+    missing = [c for c in columns if c not in frame.columns]
+    if missing:
+        raise InputError(f"missing column(s) {', '.join(missing)}", path)
+
+
+def load_inputs(results: str | Path, application: str,
+                match_folder: str | Path) -> ReportInputs:
+    """Read everything one application's report needs.
+
+    Parameters
+    ----------
+    results : path
+        Folder of the extraction tables, ``devices.csv`` and ``reel.json``.
+    application : str
+        Shipped profile name or YAML path (as given to ``kinset match``).
+    match_folder : path
+        Folder holding that application's ``sets.csv``, ``unmatched.csv``, ``summary.json``.
+    """
+    results, match_folder = Path(results), Path(match_folder)
+    if not results.is_dir():
+        raise InputError("results folder does not exist", results)
+    profile = load_profile(application)
+    files: list[InputFile] = []
+
+    def seen(path: Path) -> Path:
+        files.append(fingerprint(path, _label(path, results)))
+        return path
+
+    for name in MATCH_FILES:
+        if not (match_folder / name).is_file():
+            raise InputError(f"no {name}: run 'kinset match' for this application first",
+                             match_folder / name)
+    sets = _read_csv(seen(match_folder / "sets.csv"), "sets.csv")
+    _need(sets, ("set", "device"), match_folder / "sets.csv")
+    unmatched = _read_csv(seen(match_folder / "unmatched.csv"), "unmatched.csv")
+    _need(unmatched, ("device", "reason"), match_folder / "unmatched.csv")
+    if "reason" in unmatched:
+        unmatched["reason"] = unmatched["reason"].fillna("").astype(str)
+    for col in ("stage", "position"):
+        if col not in unmatched:
+            unmatched[col] = np.nan
+    if "position" not in sets:
+        sets["position"] = np.nan
+    summary_path = seen(match_folder / "summary.json")
+    try:
+        summary = json.loads(summary_path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"not valid JSON: {exc}", summary_path) from None
+
+    tables = {}
+    for name in TABLES:
+        path = results / f"{name}.csv"
+        if path.is_file():
+            tables[name] = _read_csv(seen(path), f"{name}.csv")
+    if (results / "devices.csv").is_file():
+        devices = _read_csv(seen(results / "devices.csv"), "devices.csv")
+    else:
+        ids = sorted(set(sets["device"]) | set(unmatched["device"]))
+        devices = pd.DataFrame({"device": ids})
+    reel = {}
+    if (results / "reel.json").is_file():
+        path = seen(results / "reel.json")
+        try:
+            reel = json.loads(path.read_text(encoding="utf-8"))
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise InputError(f"not valid JSON: {exc}", path) from None
+    profile_text = profile.path.read_text(encoding="utf-8")
+    files.append(fingerprint(profile.path, _profile_label(profile)))
+    return ReportInputs(results=results, match_folder=match_folder, profile=profile,
+                        profile_text=profile_text, profile_label=_profile_label(profile),
+                        reel=reel, tables=tables, devices=devices, sets=sets,
+                        unmatched=unmatched, summary=summary, files=files)
+

@@ -1,0 +1,351 @@
+"""The report's figures, drawn with matplotlib's object API and written as inline SVG.
+
+No pyplot and no global backend: each figure is a :class:`matplotlib.figure.Figure`
+drawn on the SVG canvas inside a private ``rc_context``, so a report never changes
+the caller's matplotlib state. The SVG is deterministic: a fixed ``svg.hashsalt``,
+no date or creator metadata, text kept as text (``svg.fonttype: none``). Element ids
+get a per-figure prefix, so several figures can sit in one page without two
+elements sharing an id; the style sheet matplotlib writes into each SVG (which
+would apply to the whole page) is dropped, the page's own CSS scopes it instead.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import re
+from dataclasses import dataclass, field
+
+import matplotlib
+import numpy as np
+from matplotlib.figure import Figure
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+
+from kinset.format import si
+from kinset.physics.capacitance import junction_capacitance
+from kinset.physics.forward import saturation_current_at, voltage_from_current
+from kinset.physics.recovery import recovery_waveform
+
+# kinset's own plain, print-friendly look: dark ink on white, thin rules, a palette of
+# well-separated mid-dark hues that stay distinct in greyscale print by marker shape.
+INK = "#222222"
+GRID = "#d9d9d9"
+ALL_PARTS = "#b9c3cb"
+PLACED = "#2f5d7c"
+LIMIT = "#b5421f"
+DAMAGED = "#a8173a"
+MEMBER_COLORS = ("#2f5d7c", "#c46a1b", "#3f7f4a", "#7d4a8c", "#8a7420", "#2f8a8f",
+                 "#a8173a", "#5b5b5b")
+MEMBER_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<")
+
+STYLE = {
+    "svg.hashsalt": "kinset-report",
+    "svg.fonttype": "none",
+    "font.family": ["DejaVu Sans", "sans-serif"],
+    "font.size": 7.5,
+    "axes.titlesize": 8,
+    "axes.labelsize": 7.5,
+    "axes.edgecolor": INK,
+    "axes.labelcolor": INK,
+    "axes.linewidth": 0.6,
+    "axes.grid": True,
+    "axes.axisbelow": True,
+    "grid.color": GRID,
+    "grid.linewidth": 0.5,
+    "xtick.color": INK,
+    "ytick.color": INK,
+    "xtick.labelsize": 6.5,
+    "ytick.labelsize": 6.5,
+    "xtick.major.width": 0.6,
+    "ytick.major.width": 0.6,
+    "legend.fontsize": 6.5,
+    "legend.frameon": False,
+    "lines.linewidth": 1.1,
+    "lines.markersize": 3.2,
+    "path.simplify": True,
+}
+SVG_METADATA = {"Date": None, "Creator": None, "Format": None, "Type": None}
+
+_PROLOG = re.compile(r"^.*?(?=<svg\b)", re.S)
+_METADATA = re.compile(r"<metadata>.*?</metadata>\s*", re.S)
+_STYLE = re.compile(r"<style[^>]*>.*?</style>\s*", re.S)
+
+
+def svg_text(fig: Figure, key: str, label: str) -> str:
+    """The figure as an ``<svg>`` element for inlining in HTML, ids prefixed with ``key``."""
+    buf = io.StringIO()
+    with matplotlib.rc_context(STYLE):
+        fig.savefig(buf, format="svg", metadata=SVG_METADATA)
+    text = _STYLE.sub("", _METADATA.sub("", _PROLOG.sub("", buf.getvalue(), count=1)))
+    text = text.replace(' id="', f' id="{key}-').replace('href="#', f'href="#{key}-') \
+               .replace("url(#", f"url(#{key}-")
+    label = label.replace("&", "&amp;").replace('"', "&quot;").replace("<", "&lt;")
+    return text.replace("<svg ", f'<svg class="plot" role="img" aria-label="{label}" ', 1).strip()
+
+
+def _figure(width: float, height: float) -> Figure:
+    with matplotlib.rc_context(STYLE):
+        return Figure(figsize=(width, height), layout="constrained")
+
+
+def _prefix(values, unit: str) -> tuple[float, str]:
+    """A display factor and unit for an axis (0.6 V -> 1e-3, 'mV')."""
+    finite = np.abs(np.asarray(values, dtype=float))
+    finite = finite[np.isfinite(finite) & (finite > 0)]
+    if not len(finite):
+        return 1.0, unit
+    label = si(float(np.median(finite)), unit)
+    prefix = label.split(" ", 1)[1][: -len(unit)] if unit else ""
+    factor = {"G": 1e9, "M": 1e6, "k": 1e3, "": 1.0, "m": 1e-3, "\u00b5": 1e-6, "n": 1e-9,
+              "p": 1e-12, "f": 1e-15}.get(prefix, 1.0)
+    return factor, prefix + unit
+
+
+def _si_formatter(unit: str) -> FuncFormatter:
+    return FuncFormatter(lambda v, _pos: si(v, unit, 3) if v > 0 else "")
+
+
+# --------------------------------------------------------------------------- yield
+
+def funnel_figure(stages: list[tuple[str, int]], key: str) -> str:
+    """Horizontal bars: parts at each step from 'seen' to 'placed in sets'."""
+    fig = _figure(6.2, 0.45 + 0.32 * len(stages))
+    ax = fig.add_subplot()
+    labels = [s for s, _ in stages][::-1]
+    counts = np.array([n for _, n in stages][::-1], dtype=float)
+    top = max(counts.max() if len(counts) else 0, 1)
+    ax.barh(np.arange(len(counts)), counts, color=[PLACED] + [ALL_PARTS] * (len(counts) - 1),
+            height=0.62, edgecolor=INK, linewidth=0.4)
+    for y, n in enumerate(counts):
+        ax.text(n + top * 0.01, y, f"{int(n)}", va="center", ha="left", color=INK)
+    ax.set_yticks(np.arange(len(counts)), labels)
+    ax.set_xlim(0, top * 1.12)
+    ax.set_xlabel("parts")
+    ax.grid(axis="y", visible=False)
+    return svg_text(fig, key, "yield: parts seen, with data, passing screening, placed in sets")
+
+
+# --------------------------------------------------------------------------- distributions
+
+@dataclass
+class Panel:
+    """One histogram of the reel: every part, the placed ones, limits, damaged parts."""
+
+    title: str
+    unit: str
+    values: np.ndarray            # SI, one per device (NaN where not available)
+    placed: np.ndarray            # bool per device
+    damaged: np.ndarray           # bool per device
+    log: bool = False
+    limits: list[tuple[str, float]] = field(default_factory=list)   # ("max", value)
+
+
+def distributions_figure(panels: list[Panel], key: str, columns: int = 3) -> str:
+    rows = math.ceil(len(panels) / columns)
+    fig = _figure(7.2, 1.95 * rows)
+    axes = fig.subplots(rows, columns, squeeze=False)
+    for ax in axes.flat[len(panels):]:
+        ax.set_visible(False)
+    for ax, p in zip(axes.flat, panels):
+        v = np.asarray(p.values, dtype=float)
+        ok = np.isfinite(v) & ((v > 0) if p.log else True)
+        x = v[ok]
+        lims = [val for _, val in p.limits]
+        if p.log:
+            lo, hi = np.log10(min([x.min()] + [l for l in lims if l > 0])), \
+                np.log10(max([x.max()] + [l for l in lims if l > 0]))
+            lo, hi = (lo - 0.5, hi + 0.5) if hi - lo < 1e-9 else (lo, hi)
+            bins = np.logspace(lo, hi, 41)
+            ax.set_xscale("log")
+            ax.xaxis.set_major_locator(LogLocator(numticks=5))
+            ax.xaxis.set_minor_formatter(NullFormatter())
+            ax.xaxis.set_major_formatter(_si_formatter(p.unit))
+            factor, unit = 1.0, p.unit
+        else:
+            factor, unit = _prefix(x, p.unit)
+            lo, hi = min([x.min()] + lims), max([x.max()] + lims)
+            span = hi - lo if hi > lo else max(abs(hi), 1e-30) * 0.01
+            bins = np.linspace(lo - 0.02 * span, hi + 0.02 * span, 41) / factor
+        xs = x if p.log else x / factor
+        ax.hist(xs, bins=bins, color=ALL_PARTS, label=f"all parts ({len(x)})")
+        placed = p.placed[ok]
+        if placed.any():
+            ax.hist(xs[placed], bins=bins, color=PLACED, label=f"placed ({int(placed.sum())})")
+        for kind, val in p.limits:
+            ax.axvline(val if p.log else val / factor, color=LIMIT, linewidth=1.2,
+                       linestyle="--", label=f"screen {kind} {si(val, p.unit)}")
+        dmg = p.damaged[ok]
+        if dmg.any():
+            ax.plot(xs[dmg], np.zeros(int(dmg.sum())), linestyle="none", marker="x",
+                    color=DAMAGED, markersize=4.5, clip_on=False,
+                    label=f"possible damage ({int(dmg.sum())})")
+        ax.set_title(p.title, loc="left")
+        ax.set_xlabel(unit)
+        ax.set_ylabel("parts")
+        ax.legend(loc="upper right", handlelength=1.2)
+    return svg_text(fig, key, "distributions of the reel with screening limits")
+
+
+# --------------------------------------------------------------------------- one set
+
+@dataclass
+class Member:
+    """What one set member's panels are drawn from (SI; NaN where absent)."""
+
+    device: str
+    forward: dict | None = None          # forward.csv row
+    readings: tuple | None = None        # (current, voltage, used) arrays
+    capacitance: dict | None = None      # capacitance.csv row
+    cv_points: tuple | None = None       # (reverse voltage, capacitance, used) arrays
+    recovery: dict | None = None         # recovery.csv row
+
+
+def _f(row: dict | None, col: str) -> float:
+    if row is None:
+        return math.nan
+    try:
+        return float(row.get(col, math.nan))
+    except (TypeError, ValueError):
+        return math.nan
+
+
+def _fitted(row: dict | None) -> bool:
+    return row is not None and str(row.get("status")) != "rejected" and all(
+        math.isfinite(_f(row, c)) for c in ("is_A", "n", "rs_ohm", "i_min_A", "i_max_A"))
+
+
+def _fwd_voltage(row: dict, current: np.ndarray, temperature: float | None = None) -> np.ndarray:
+    t_ref = _f(row, "reference_temperature_C") + 273.15
+    t = t_ref if temperature is None else temperature
+    i_s = _f(row, "is_A")
+    if temperature is not None and math.isfinite(_f(row, "eg_eV")):
+        i_s = saturation_current_at(i_s, t, t_ref, _f(row, "n"), _f(row, "eg_eV"), _f(row, "xti"))
+    return voltage_from_current(current, i_s, _f(row, "n"), _f(row, "rs_ohm"), t)
+
+
+def set_figure(members: list[Member], currents: list[float], temperature: float,
+               key: str, label: str) -> str:
+    """Forward curves (measured and fitted), their deviation from the set's mean,
+    C–V and recovery overlays of one set."""
+    has_cv = any(m.cv_points is not None or m.capacitance is not None for m in members)
+    has_rr = any(m.recovery is not None and math.isfinite(_f(m.recovery, "tt_s"))
+                 for m in members)
+    fitted = [m for m in members if _fitted(m.forward)]
+    n_panels = 1 + (len(fitted) >= 2) + has_cv + has_rr
+    cols = 2 if n_panels > 1 else 1
+    rows = math.ceil(n_panels / cols)
+    fig = _figure(7.2 if cols == 2 else 3.8, 2.35 * rows)
+    axes = list(fig.subplots(rows, cols, squeeze=False).flat)
+    for ax in axes[n_panels:]:
+        ax.set_visible(False)
+    style = {m.device: (MEMBER_COLORS[i % len(MEMBER_COLORS)],
+                        MEMBER_MARKERS[i % len(MEMBER_MARKERS)]) for i, m in enumerate(members)}
+    it = iter(axes)
+
+    ax = next(it)
+    for m in members:
+        color, marker = style[m.device]
+        if m.readings is not None:
+            i, v, used = m.readings
+            ax.plot(v[used], i[used], linestyle="none", marker=marker, color=color,
+                    markerfacecolor="none", markeredgewidth=0.7)
+            if (~used).any():
+                ax.plot(v[~used], i[~used], linestyle="none", marker=marker, color=GRID,
+                        markeredgewidth=0.7, markerfacecolor="none")
+        if _fitted(m.forward):
+            cur = np.logspace(np.log10(_f(m.forward, "i_min_A")),
+                              np.log10(_f(m.forward, "i_max_A")), 60)
+            ax.plot(_fwd_voltage(m.forward, cur), cur, color=color, label=m.device)
+        else:
+            ax.plot([], [], color=color, marker=marker, linestyle="none",
+                    markerfacecolor="none", label=f"{m.device} (points only)")
+    for c in currents:
+        ax.axhline(c, color=LIMIT, linewidth=0.6, linestyle=":")
+    ax.set_yscale("log")
+    ax.yaxis.set_major_formatter(_si_formatter("A"))
+    ax.yaxis.set_minor_formatter(NullFormatter())
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v * 1e3:.0f}"))
+    ax.set_xlabel("forward voltage [mV]")
+    ax.set_ylabel("current")
+    ax.set_title("forward: readings (o) and fitted model (line), at TNOM", loc="left")
+    ax.legend(loc="upper left")
+
+    if len(fitted) >= 2:
+        ax = next(it)
+        lo = max(_f(m.forward, "i_min_A") for m in fitted)
+        hi = min(_f(m.forward, "i_max_A") for m in fitted)
+        if hi > lo:
+            cur = np.logspace(np.log10(lo), np.log10(hi), 80)
+            volts = np.array([_fwd_voltage(m.forward, cur, temperature) for m in fitted])
+            mean = volts.mean(axis=0)
+            for m, v in zip(fitted, volts):
+                ax.plot(cur, (v - mean) * 1e3, color=style[m.device][0], label=m.device)
+            ax.set_xscale("log")
+            ax.xaxis.set_major_formatter(_si_formatter("A"))
+            ax.xaxis.set_minor_formatter(NullFormatter())
+            for c in currents:
+                ax.axvline(c, color=LIMIT, linewidth=0.6, linestyle=":")
+        else:
+            ax.text(0.5, 0.5, "the fitted ranges do not overlap", ha="center",
+                    transform=ax.transAxes)
+        ax.set_xlabel("current")
+        ax.set_ylabel("V \u2212 set mean [mV]")
+        ax.set_title(f"forward voltage minus the set's mean, at {temperature - 273.15:g} \u00b0C",
+                     loc="left")
+
+    if has_cv:
+        ax = next(it)
+        vmax = 0.0
+        for m in members:
+            color, marker = style[m.device]
+            if m.cv_points is not None:
+                vr, c, used = m.cv_points
+                ax.plot(vr[used], c[used] * 1e12, linestyle="none", marker=marker, color=color,
+                        markerfacecolor="none", markeredgewidth=0.7)
+                vmax = max(vmax, float(np.nanmax(vr)) if len(vr) else 0.0)
+            cap = m.capacitance
+            if cap is not None and str(cap.get("status")) != "rejected" and all(
+                    math.isfinite(_f(cap, k)) for k in ("cj0_F", "vj_V", "m")):
+                top = _f(cap, "vr_max_V")
+                top = top if math.isfinite(top) and top > 0 else max(vmax, 1.0)
+                vmax = max(vmax, top)
+                vr = np.linspace(max(_f(cap, "vr_min_V"), 0.0) if math.isfinite(
+                    _f(cap, "vr_min_V")) else 0.0, top, 60)
+                c = junction_capacitance(vr, _f(cap, "cj0_F"), _f(cap, "vj_V"), _f(cap, "m"))
+                cp = _f(cap, "cp_F")
+                ax.plot(vr, (c + (cp if math.isfinite(cp) else 0.0)) * 1e12, color=color,
+                        label=m.device)
+        ax.set_xlabel("reverse voltage [V]")
+        ax.set_ylabel("capacitance [pF]")
+        ax.set_title("C\u2013V: points (o) and fitted law (line)", loc="left")
+
+    if has_rr:
+        ax = next(it)
+        rec = [m for m in members if m.recovery is not None and math.isfinite(_f(m.recovery, "tt_s"))]
+        t0 = min(_f(m.recovery, "t0_s") if math.isfinite(_f(m.recovery, "t0_s")) else 0.0
+                 for m in rec)
+        span = max(_f(m.recovery, "trr_s") if math.isfinite(_f(m.recovery, "trr_s")) else
+                   3 * _f(m.recovery, "tt_s") for m in rec)
+        t = np.linspace(t0 - 0.3 * span, t0 + 1.8 * span, 240)
+        for m in rec:
+            r = m.recovery
+            i_f = _f(r, "if_A") if math.isfinite(_f(r, "if_A")) else _f(r, "if_set_A")
+            i_r = _f(r, "ir_A") if math.isfinite(_f(r, "ir_A")) else _f(r, "ir_set_A")
+            tau = _f(r, "decay_tau_s")
+            sw = _f(r, "t0_s") if math.isfinite(_f(r, "t0_s")) else 0.0
+            if not all(math.isfinite(x) for x in (i_f, i_r)):
+                continue
+            i = recovery_waveform(t, i_f, i_r, _f(r, "tt_s"), tau if math.isfinite(tau) else 0.0,
+                                  0.0, switch_time=sw)
+            color, marker = style[m.device]
+            ax.plot((t - t0) * 1e9, i * 1e3, color=color, label=m.device)
+            trr = _f(r, "trr_s")
+            if math.isfinite(trr):
+                k = np.argmin(np.abs(t - (sw + trr)))
+                ax.plot([(t[k] - t0) * 1e9], [i[k] * 1e3], marker=marker, color=color,
+                        markerfacecolor="none", linestyle="none")
+        ax.set_xlabel("time from the current's zero crossing [ns]")
+        ax.set_ylabel("current [mA]")
+        ax.set_title("recovery: charge-control model of each part's fit; marker at trr",
+                     loc="left")
+    return svg_text(fig, key, label)

@@ -1,0 +1,253 @@
+"""Touchstone files to capacitance points, against scikit-rf as the reference library.
+
+Outside sources:
+
+* scikit-rf (``skrf.media.DefinedGammaZ0``): it builds the networks of lumped elements
+  (resistor, inductor, capacitor in series; shunt elements; cascades) and writes them as
+  Touchstone version 1 and 2 files. The values the elements were given are the truth.
+* Touchstone File Format Specification, version 2.0 (IBIS Open Forum, 2009): a
+  Z-parameter file with a ``[Reference]`` impedance, written here by hand in that format.
+* K. Kurokawa, IEEE Trans. MTT 13(2), 194-202, 1965 (doi:10.1109/TMTT.1965.1125964):
+  series and shunt elements between unequal real reference impedances, as scikit-rf's
+  ``renormalize`` computes them.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+import skrf
+
+from kinset.errors import InputError
+from kinset.extract import capacitance_vna_points
+from kinset.io.touchstone import read_touchstone, read_vna_index
+from kinset.physics.capacitance import fixture_admittance
+
+R_DUT, L_DUT, C_DUT = 1.5, 1.2e-9, 1.0e-12          # [Ohm], [H], [F]
+FREQ = np.linspace(10e6, 3e9, 121)                    # [Hz]
+C_REL, R_REL = 1e-3, 1e-2                             # acceptance limits of issue 4
+
+
+def media(f=FREQ, z0=50.0):
+    return skrf.media.DefinedGammaZ0(skrf.Frequency.from_f(f, unit="Hz"), z0=z0)
+
+
+def dut_one_port(m, r=R_DUT, ind=L_DUT, c=C_DUT):
+    """Resistor, inductor and capacitor in series, to ground, as a one-port."""
+    return m.resistor(r) ** m.inductor(ind) ** m.capacitor(c) ** m.short()
+
+
+def networks(m, fixture, r=R_DUT, ind=L_DUT, c=C_DUT, parasitic=0.0):
+    """(device network, empty-fixture network) of a fixture with a parasitic capacitance
+    in parallel with the device (None for the empty fixture when ``parasitic`` is 0)."""
+    if fixture == "reflection":
+        dut = dut_one_port(m, r, ind, c)
+        if not parasitic:
+            return dut, None
+        return m.shunt_capacitor(parasitic) ** dut, m.shunt_capacitor(parasitic) ** m.open()
+    if fixture == "series":
+        if not parasitic:
+            return m.resistor(r) ** m.inductor(ind) ** m.capacitor(c), None
+        # The gap capacitance of the empty fixture sits in parallel with the device.
+        z_dut = dut_one_port(m, r, ind, c).z[:, 0, 0]
+        y_gap = 2j * np.pi * m.frequency.f * parasitic
+        return m.resistor(1.0 / (1.0 / z_dut + y_gap)), m.capacitor(parasitic)
+    dut = m.shunt(dut_one_port(m, r, ind, c))
+    if not parasitic:
+        return dut, None
+    return m.shunt_capacitor(parasitic) ** dut, m.shunt_capacitor(parasitic)
+
+
+def write(net, path: Path, version="1.0", noise=0.0, seed=0) -> Path:
+    """Write with scikit-rf (v1: .s1p/.s2p; v2: .ts), optionally with complex noise on S."""
+    net = net.copy()
+    if noise:
+        rng = np.random.default_rng(seed)
+        net.s = net.s + noise * (rng.standard_normal(net.s.shape)
+                                 + 1j * rng.standard_normal(net.s.shape))
+    path.parent.mkdir(parents=True, exist_ok=True)
+    net.write_touchstone(filename=str(path), version=version, skrf_comment=False)
+    return path
+
+
+def write_index(folder: Path, rows) -> Path:
+    """capacitance/index.csv from (file, device, bias, fixture) rows."""
+    lines = ["file,device,reverse_voltage_V,fixture"]
+    lines += [f"{f},{d},{v},{x}" for f, d, v, x in rows]
+    path = folder / "index.csv"
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+@pytest.mark.parametrize("version", ["1.0", "2.0"])
+@pytest.mark.parametrize("fixture", ["reflection", "series", "shunt"])
+def test_skrf_networks_round_trip_to_r_and_c(tmp_path, fixture, version):
+    """Series R–L–C written by scikit-rf is read back: C within 0.1 %, R within 1 %."""
+    cap = tmp_path / "reel" / "capacitance"
+    ports = 1 if fixture == "reflection" else 2
+    name = f"dut.s{ports}p" if version == "1.0" else "dut.ts"
+    dut, _ = networks(media(), fixture)
+    write(dut, cap / name, version)
+    points = capacitance_vna_points(write_index(cap, [(name, "D1", 2.0, fixture)]))
+    row = points.iloc[0]
+    assert row["status"] != "rejected", row["note"]
+    # scikit-rf (DefinedGammaZ0 lumped elements): the values the network was built from.
+    assert row["capacitance"] == pytest.approx(C_DUT, rel=C_REL)
+    assert row["resistance"] == pytest.approx(R_DUT, rel=R_REL)
+    assert row["inductance"] == pytest.approx(L_DUT, rel=1e-2)
+
+
+def test_reference_impedance_comes_from_the_file(tmp_path):
+    """A 75-ohm file of the same device gives the same R and C as a 50-ohm one."""
+    cap = tmp_path / "reel" / "capacitance"
+    write(dut_one_port(media(z0=75.0)), cap / "d75.s1p")
+    head = (cap / "d75.s1p").read_text().splitlines()
+    assert any(s.startswith("#") and s.rstrip().endswith("75.0") for s in head)
+    row = capacitance_vna_points(write_index(cap, [("d75.s1p", "D1", 1, "reflection")])).iloc[0]
+    # scikit-rf: the network was built on a 75-ohm line from these element values.
+    assert row["capacitance"] == pytest.approx(C_DUT, rel=C_REL)
+    assert row["resistance"] == pytest.approx(R_DUT, rel=R_REL)
+
+
+def test_touchstone_2_z_parameters_with_reference(tmp_path):
+    """A v2 Z-parameter one-port ([Reference] 20 ohm) gives back the Z written in it."""
+    # Touchstone 2.0 specification: keyword layout of a one-port Z-parameter file in
+    # MHz, magnitude/angle, with [Reference]; the values are this test's own.
+    f_mhz = np.array([100.0, 200.0, 400.0, 800.0])
+    w = 2e6 * np.pi * f_mhz
+    z = 3.0 + 1j * (w * 2e-9 - 1.0 / (w * 2e-12))
+    lines = ["! one-port Z parameters", "[Version] 2.0", "# MHz Z MA R 20",
+             "[Number of Ports] 1", f"[Number of Frequencies] {len(f_mhz)}",
+             "[Reference] 20", "[Network Data]"]
+    lines += [f"{fm:g} {abs(zz):.12g} {np.degrees(np.angle(zz)):.12g}" for fm, zz in zip(f_mhz, z)]
+    lines.append("[End]")
+    path = tmp_path / "z.ts"
+    path.write_text("\n".join(lines) + "\n")
+    sweep = read_touchstone(path)
+    np.testing.assert_allclose(sweep.frequency, f_mhz * 1e6)
+    np.testing.assert_allclose(sweep.reference_impedance.real, 20.0)
+    y, _ = fixture_admittance(sweep.s, sweep.reference_impedance.real, "reflection")
+    np.testing.assert_allclose(1.0 / y, z, rtol=1e-9)
+
+
+@pytest.mark.parametrize("fixture", ["series", "shunt"])
+def test_unequal_port_impedances(fixture):
+    """Kurokawa's series/shunt relations with Z01 = 50, Z02 = 75 ohm, as scikit-rf renormalises."""
+    m = media()
+    dut, _ = networks(m, fixture)
+    z_dut = dut_one_port(m).z[:, 0, 0]
+    net = dut.copy()
+    net.renormalize([50.0, 75.0])
+    y, _ = fixture_admittance(net.s, np.broadcast_to([50.0, 75.0], (len(FREQ), 2)), fixture)
+    # scikit-rf renormalize (Kurokawa power waves; equal to pseudo-waves for real Z0).
+    np.testing.assert_allclose(1.0 / y, z_dut, rtol=1e-5)
+
+
+def test_noise_gain_is_the_derivative():
+    """dY/dS of each fixture equals a finite difference of Y (checks the band's weights)."""
+    m = media()
+    for fixture in ("reflection", "series", "shunt"):
+        dut, _ = networks(m, fixture)
+        z0 = np.full((len(FREQ), dut.nports), 50.0)
+        y0, dy = fixture_admittance(dut.s, z0, fixture)
+        h = 1e-7
+        s = dut.s.copy()
+        i, j = (0, 0) if fixture == "reflection" else (1, 0)
+        s[:, i, j] += h
+        y1, _ = fixture_admittance(s, z0, fixture)
+        np.testing.assert_allclose((y1 - y0) / h, dy, rtol=1e-4)
+
+
+def test_empty_fixture_is_subtracted(tmp_path):
+    """A known parallel capacitance added to the files is removed within 0.5 %."""
+    cap = tmp_path / "reel" / "capacitance"
+    parasitic = 0.4e-12                                  # [F], 40 % of the device's
+    rows = []
+    for fixture in ("reflection", "series", "shunt"):
+        dut, empty = networks(media(), fixture, parasitic=parasitic)
+        ext = "s1p" if fixture == "reflection" else "s2p"
+        write(dut, cap / f"dut_{fixture}.{ext}")
+        write(empty, cap / f"open_{fixture}.{ext}")
+        rows += [(f"open_{fixture}.{ext}", "open", 3.0, fixture),
+                 (f"dut_{fixture}.{ext}", f"D_{fixture}", 3.0, fixture)]
+    points = capacitance_vna_points(write_index(cap, rows)).set_index("device")
+    for fixture in ("reflection", "series", "shunt"):
+        row = points.loc[f"D_{fixture}"]
+        assert row["status"] == "ok", row["note"]
+        assert row["open_file"] == f"open_{fixture}.{'s1p' if fixture == 'reflection' else 's2p'}"
+        # scikit-rf: the device network's capacitor, with the shunt/gap capacitor removed.
+        assert row["capacitance"] == pytest.approx(C_DUT, rel=5e-3), fixture
+        assert row["open_capacitance"] == pytest.approx(parasitic, rel=5e-3), fixture
+
+
+def test_without_the_empty_fixture_the_parasitic_stays(tmp_path):
+    """Control for the check above: with no open row the point warns and C is off."""
+    cap = tmp_path / "reel" / "capacitance"
+    dut, _ = networks(media(FREQ[FREQ <= 1e9]), "reflection", parasitic=0.4e-12)
+    write(dut, cap / "dut.s1p")
+    row = capacitance_vna_points(write_index(cap, [("dut.s1p", "D1", 3, "reflection")])).iloc[0]
+    assert row["status"] == "warning" and "not removed" in row["note"]
+    assert row["capacitance"] > 1.2 * C_DUT
+
+
+def test_band_excludes_the_ill_conditioned_end(tmp_path):
+    """Noisy S: the band starts above the frequencies where |Z| >> Z0, and C still holds."""
+    cap = tmp_path / "reel" / "capacitance"
+    f = np.geomspace(1e6, 3e9, 80)
+    write(dut_one_port(media(f)), cap / "n.s1p", noise=2e-4, seed=3)
+    row = capacitance_vna_points(write_index(cap, [("n.s1p", "D1", 0, "reflection")])).iloc[0]
+    # Circuit theory: |Z| of 1 pF is 50 ohm at 3.2 GHz and 1.6 kohm at 100 MHz; noise
+    # on S11 is amplified by about |Z|/(2 Z0) in relative terms (reflection coefficient
+    # of a load, Kurokawa 1965), so the kept band lies well above 1 MHz.
+    assert row["band_min"] > 50e6
+    assert row["band_max"] == pytest.approx(f[-1])
+    assert row["capacitance"] == pytest.approx(C_DUT, rel=C_REL)
+    assert row["s_noise"] == pytest.approx(2e-4, rel=0.3)     # the noise that was added
+
+
+def test_bad_files_are_rejected_rows_naming_the_file(tmp_path):
+    """Not a Touchstone file, missing, wrong port count, no open at the bias: rejected."""
+    cap = tmp_path / "reel" / "capacitance"
+    m = media()
+    write(dut_one_port(m), cap / "good.s1p")
+    write(dut_one_port(m), cap / "good_2V.s1p")
+    write(m.shunt_capacitor(0.2e-12) ** m.open(), cap / "open_2V.s1p")
+    (cap / "broken.s1p").write_text("# Hz S RI R 50\n1e8 0.5 abc\n")
+    write(networks(m, "series")[0], cap / "two.s2p")
+    rows = [("open_2V.s1p", "open", 2, "reflection"),
+            ("good_2V.s1p", "A", 2, "reflection"),
+            ("broken.s1p", "B", 2, "reflection"),
+            ("missing.s1p", "C", 2, "reflection"),
+            ("two.s2p", "D", 2, "reflection"),
+            ("good.s1p", "E", 7, "reflection")]
+    points = capacitance_vna_points(write_index(cap, rows)).set_index("device")
+    assert points.loc["A", "status"] == "ok"
+    for dev, file, words in (("B", "broken.s1p", "does not parse"), ("C", "missing.s1p", "not found"),
+                             ("D", "two.s2p", "2 port"), ("E", "good.s1p", "no empty-fixture")):
+        assert points.loc[dev, "status"] == "rejected"
+        assert points.loc[dev, "note"].startswith(file) and words in points.loc[dev, "note"]
+
+
+@pytest.mark.parametrize("bad", ["../../outside.s1p", "/tmp/abs.s1p", "C:/vna/x.s1p",
+                                 "sub/../../../x.s1p"])
+def test_index_paths_must_stay_in_the_reel(tmp_path, bad):
+    cap = tmp_path / "reel" / "capacitance"
+    cap.mkdir(parents=True)
+    index = write_index(cap, [("ok.s1p", "A", 1, "reflection"), (bad, "B", 1, "reflection")])
+    with pytest.raises(InputError) as err:
+        read_vna_index(index)
+    assert err.value.file == str(index) and err.value.line == 3
+    assert "index.csv" in str(err.value) and "line 3" in str(err.value)
+
+
+def test_index_paths_inside_the_reel_are_fine(tmp_path):
+    cap = tmp_path / "reel" / "capacitance"
+    cap.mkdir(parents=True)
+    index = write_index(cap, [("../vna/x.s1p", "A", 1, "reflection"), ("y.s1p", "B", 1, "series")])
+    frame = read_vna_index(index)
+    assert frame["path"].iloc[0] == str(tmp_path / "reel" / "vna" / "x.s1p")
+    bad = write_index(cap, [("y.s1p", "B", 1, "through")])
+    with pytest.raises(InputError, match="fixture 'through'"):
+        read_vna_index(bad)
