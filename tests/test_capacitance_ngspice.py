@@ -17,8 +17,6 @@ regenerated live and must equal the committed data.
 
 from __future__ import annotations
 
-import importlib.util
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -29,22 +27,11 @@ from kinset.io.datasets import read_capacitance
 from kinset.physics.capacitance import junction_capacitance
 from kinset.physics.constants import ZERO_CELSIUS
 
+from ngspice_tools import load_regenerate, requires_ngspice
+
 REFERENCE = Path(__file__).resolve().parent / "reference" / "ngspice" / "capacitance"
 
-
-def _load_regenerate():
-    name = "kinset_reference_ngspice_capacitance_regenerate"
-    if name in sys.modules:
-        return sys.modules[name]
-    spec = importlib.util.spec_from_file_location(name, REFERENCE / "regenerate.py")
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module          # dataclasses look their module up here
-    spec.loader.exec_module(module)
-    return module
-
-
-regenerate = _load_regenerate()          # also puts tests/ on sys.path
-from ngspice_tools import requires_ngspice  # noqa: E402
+regenerate = load_regenerate(REFERENCE)
 
 CASES = regenerate.cases(REFERENCE)
 ISSUE = next(c for c in CASES if c.name == "abrupt_10p")

@@ -14,9 +14,7 @@ regenerated live and must equal the committed data.
 
 from __future__ import annotations
 
-import importlib.util
 import shutil
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -30,23 +28,12 @@ from kinset.io.reel import load_reel
 from kinset.physics.constants import ZERO_CELSIUS
 from kinset.quantities import reverse_current
 
+from ngspice_tools import load_regenerate, requires_ngspice
+
 REFERENCE = Path(__file__).resolve().parent / "reference" / "ngspice" / "leakage"
 T25 = 25.0 + ZERO_CELSIUS
 
-
-def _load_regenerate():
-    name = "kinset_reference_ngspice_leakage_regenerate"
-    if name in sys.modules:
-        return sys.modules[name]
-    spec = importlib.util.spec_from_file_location(name, REFERENCE / "regenerate.py")
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module
-    spec.loader.exec_module(module)
-    return module
-
-
-regenerate = _load_regenerate()          # also puts tests/ on sys.path
-from ngspice_tools import requires_ngspice  # noqa: E402
+regenerate = load_regenerate(REFERENCE)
 
 CASES = regenerate.cases()
 TRUTH = pd.read_csv(REFERENCE / "truth.csv", comment="#").set_index("device")

@@ -18,9 +18,7 @@ regenerated live and must equal the committed data.
 
 from __future__ import annotations
 
-import importlib.util
 import shutil
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -33,22 +31,11 @@ from kinset.io.datasets import read_recovery
 from kinset.io.reel import load_reel
 from kinset.physics.recovery import storage_time
 
+from ngspice_tools import load_regenerate, requires_ngspice
+
 REFERENCE = Path(__file__).resolve().parent / "reference" / "ngspice" / "recovery"
 
-
-def _load_regenerate():
-    name = "kinset_reference_ngspice_recovery_regenerate"
-    if name in sys.modules:
-        return sys.modules[name]
-    spec = importlib.util.spec_from_file_location(name, REFERENCE / "regenerate.py")
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module
-    spec.loader.exec_module(module)
-    return module
-
-
-regenerate = _load_regenerate()          # also puts tests/ on sys.path
-from ngspice_tools import requires_ngspice  # noqa: E402
+regenerate = load_regenerate(REFERENCE)
 
 CASES = regenerate.cases()
 KINGSTON = [c for c in CASES if c.name.startswith("kingston")]

@@ -20,11 +20,8 @@ reruns this when ngspice is present and requires the fresh data to equal the com
 
 from __future__ import annotations
 
-import argparse
-import importlib.util
 import re
 import sys
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -36,22 +33,7 @@ if str(TESTS) not in sys.path:
     sys.path.insert(0, str(TESTS))
 
 import ngspice_tools  # noqa: E402  (tests/ngspice_tools.py)
-
-
-def _forward_helpers():
-    """The netlist helpers of the forward reference script (SPICE numbers, cards, options)."""
-    name = "kinset_reference_ngspice_forward_regenerate"
-    if name not in sys.modules:
-        spec = importlib.util.spec_from_file_location(name, HERE.parent / "forward" / "regenerate.py")
-        module = importlib.util.module_from_spec(spec)
-        sys.modules[name] = module
-        spec.loader.exec_module(module)
-    return sys.modules[name]
-
-
-_fwd = _forward_helpers()
-spice_number, model_cards, options_lines = _fwd.spice_number, _fwd.model_cards, _fwd.options_lines
-_assignments, _logical_lines = _fwd._assignments, _fwd._logical_lines
+from ngspice_tools import model_cards, netlist_lines, options_lines, spice_number  # noqa: E402
 
 OUTPUT = "cv.txt"           # the file every deck writes with wrdata
 HEADER = "device,reverse_voltage_V,capacitance_F,frequency_Hz,temperature_C"
@@ -72,26 +54,13 @@ class Card:
 
 def card_of(text: str) -> Card:
     """The netlist's single diode card; CJO, VJ, M, tnom and temp must all be written."""
-    cards = model_cards(text)
-    if len(cards) != 1:
-        raise ValueError(f"expected one .model card, found {len(cards)}")
-    m = re.match(r"\.model\s+\S+\s+D\s*\((.*)\)\s*$", cards[0], re.IGNORECASE)
-    if not m:
-        raise ValueError(f"not a diode card: {cards[0]}")
-    par = _assignments(m.group(1))
-    opt = _assignments(" ".join(s.split(None, 1)[1] if " " in s else "" for s in options_lines(text)))
-    need = [k for k in ("CJO", "VJ", "M") if k not in par] + \
-        [k for k in ("TNOM", "TEMP") if k not in opt]
-    if need:
-        raise ValueError(f"netlist does not set {', '.join(need)} explicitly")
-    return Card(**{k: spice_number(par[k]) for k in ("CJO", "VJ", "M")},
-                TNOM=spice_number(opt["TNOM"]), TEMP=spice_number(opt["TEMP"]))
+    return Card(**ngspice_tools.diode_card(text, ("CJO", "VJ", "M")))
 
 
 def biases_of(text: str) -> list[float]:
     """DC reverse bias of ``Vb0, Vb1, ...`` [V], in the order of k."""
     found = {}
-    for line in _logical_lines(text):
+    for line in netlist_lines(text):
         m = _BIAS.match(line)
         if m:
             found[int(m.group(1))] = spice_number(m.group(2))
@@ -136,7 +105,7 @@ def simulate(netlist: Path, version: str | None = None) -> str:
         raise ngspice_tools.NgspiceError(f"{netlist.name}: ngspice ran at {temps}; the deck asks "
                                          f"for TEMP {card.TEMP} C, TNOM {card.TNOM} C")
     if version is None:
-        version = ngspice_tools.ngspice_version() or "ngspice (version unknown)"
+        version = ngspice_tools.version_label()
     title = text.splitlines()[0].lstrip("* ").strip()
     lines = [
         f"# {title}",
@@ -155,47 +124,18 @@ def simulate(netlist: Path, version: str | None = None) -> str:
 
 def regenerate(out_dir: Path = HERE, folder: Path = HERE) -> list[Path]:
     """Simulate every netlist in ``folder`` and write ``<name>.csv`` into ``out_dir``."""
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    version = ngspice_tools.ngspice_version() or "ngspice (version unknown)"
-    written = []
-    for case in cases(folder):
-        target = out_dir / case.csv.name
-        target.write_text(simulate(case.netlist, version))
-        written.append(target)
-    return written
+    return ngspice_tools.simulate_cases(
+        out_dir, cases(folder), lambda case, version: simulate(case.netlist, version)).paths
 
 
 def numbers(path: Path) -> np.ndarray:
     """The numeric columns of a CSV written here (bias, capacitance, frequency, temperature)."""
-    rows = [s.split(",")[1:] for s in path.read_text().splitlines()
-            if s.strip() and not s.startswith("#") and s != HEADER]
-    return np.array(rows, dtype=float)
+    return ngspice_tools.csv_numbers(path, HEADER)
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n", 1)[0])
-    ap.add_argument("--out", type=Path, default=HERE, help="folder for the CSVs (default: here)")
-    ap.add_argument("--check", action="store_true",
-                    help="simulate into a temporary folder and compare with the committed CSVs")
-    args = ap.parse_args(argv)
-    if not args.check:
-        for p in regenerate(args.out):
-            print(p)
-        return 0
-    with tempfile.TemporaryDirectory() as tmp:
-        bad = 0
-        for p in regenerate(Path(tmp)):
-            old = HERE / p.name
-            if not old.is_file():
-                print(f"{p.name}: not committed")
-                bad += 1
-                continue
-            a, b = numbers(old), numbers(p)
-            same = a.shape == b.shape and np.allclose(a, b, rtol=1e-9, atol=0.0)
-            print(f"{p.name}: {'same' if same else 'DIFFERS'}")
-            bad += not same
-    return 1 if bad else 0
+    return ngspice_tools.regenerate_main(argv, doc=__doc__, folder=HERE, regenerate=regenerate,
+                                         numbers=numbers)
 
 
 if __name__ == "__main__":

@@ -21,10 +21,8 @@ The temperature column is the analysis temperature ngspice reports
 
 from __future__ import annotations
 
-import argparse
 import re
 import sys
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -36,54 +34,12 @@ if str(TESTS) not in sys.path:
     sys.path.insert(0, str(TESTS))
 
 import ngspice_tools  # noqa: E402  (tests/ngspice_tools.py)
+from ngspice_tools import model_cards, options_lines  # noqa: E402
 
 OUTPUT = "forward.txt"          # the file every deck writes with wrdata
 CURRENT, VOLTAGE = "id", "vd"   # its vectors: diode current [A], terminal voltage [V]
 HEADER = "device,current_A,voltage_V,temperature_C"
 NUMBER = "%.10e"
-
-# SPICE scale factors (case-insensitive; "meg" and "mil" before the single letters).
-_SCALE = {"t": 1e12, "g": 1e9, "meg": 1e6, "k": 1e3, "mil": 25.4e-6, "m": 1e-3,
-          "u": 1e-6, "n": 1e-9, "p": 1e-12, "f": 1e-15}
-_NUM = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:e[+-]?\d+)?)(meg|mil|[tgkmunpf])?",
-                  re.IGNORECASE)
-
-
-def spice_number(text: str) -> float:
-    """A SPICE number: ``2.5e-9``, ``10``, ``4.7k``, ``1meg``; trailing letters are units."""
-    m = _NUM.match(text.strip())
-    if not m:
-        raise ValueError(f"not a SPICE number: {text!r}")
-    return float(m.group(1)) * _SCALE.get((m.group(2) or "").lower(), 1.0)
-
-
-def _logical_lines(text: str) -> list[str]:
-    """Netlist lines with ``+`` continuations joined and comments dropped."""
-    out: list[str] = []
-    for raw in text.splitlines():
-        line = raw.split(";", 1)[0].rstrip()
-        s = line.strip()
-        if not s or s.startswith("*"):
-            continue
-        if s.startswith("+") and out:
-            out[-1] += " " + s[1:].strip()
-        else:
-            out.append(s)
-    return out
-
-
-def model_cards(text: str) -> list[str]:
-    """The ``.model`` lines of a netlist, continuations joined."""
-    return [s for s in _logical_lines(text) if s.lower().startswith(".model")]
-
-
-def options_lines(text: str) -> list[str]:
-    """The ``.options`` / ``.option`` lines of a netlist."""
-    return [s for s in _logical_lines(text) if re.match(r"\.options?\b", s, re.IGNORECASE)]
-
-
-def _assignments(text: str) -> dict[str, str]:
-    return {k.upper(): v for k, v in re.findall(r"([A-Za-z]\w*)\s*=\s*([^\s=(),]+)", text)}
 
 
 @dataclass(frozen=True)
@@ -105,20 +61,7 @@ def card_of(text: str) -> Card:
     Every parameter the fit is compared with must be written in the card (no reliance
     on simulator defaults), and ``tnom`` and ``temp`` must both be set.
     """
-    cards = model_cards(text)
-    if len(cards) != 1:
-        raise ValueError(f"expected one .model card, found {len(cards)}")
-    m = re.match(r"\.model\s+\S+\s+D\s*\((.*)\)\s*$", cards[0], re.IGNORECASE)
-    if not m:
-        raise ValueError(f"not a diode card: {cards[0]}")
-    par = _assignments(m.group(1))
-    opt = _assignments(" ".join(s.split(None, 1)[1] if " " in s else "" for s in options_lines(text)))
-    need = [k for k in ("IS", "N", "RS", "EG", "XTI") if k not in par]
-    need += [k for k in ("TNOM", "TEMP") if k not in opt]
-    if need:
-        raise ValueError(f"netlist does not set {', '.join(need)} explicitly")
-    return Card(**{k: spice_number(par[k]) for k in ("IS", "N", "RS", "EG", "XTI")},
-                TNOM=spice_number(opt["TNOM"]), TEMP=spice_number(opt["TEMP"]))
+    return Card(**ngspice_tools.diode_card(text, ("IS", "N", "RS", "EG", "XTI")))
 
 
 @dataclass(frozen=True)
@@ -150,17 +93,10 @@ def simulate(netlist: Path, version: str | None = None) -> str:
     result = ngspice_tools.run_deck(text, ensure_format=False)
     table = result.table(OUTPUT)
     current, voltage = np.real(table[CURRENT]), np.real(table[VOLTAGE])
-    temps = result.analysis_temperatures()
-    if not temps:
-        raise ngspice_tools.NgspiceError(f"{netlist.name}: ngspice reported no analysis")
-    for temp, tnom in temps:
-        if abs(temp - card.TEMP) > 1e-9 or abs(tnom - card.TNOM) > 1e-9:
-            raise ngspice_tools.NgspiceError(
-                f"{netlist.name}: ngspice ran at TEMP {temp} C, TNOM {tnom} C; the deck "
-                f"asks for {card.TEMP} C, {card.TNOM} C")
+    temps = ngspice_tools.check_temperatures(result, netlist.name, card.TEMP, card.TNOM)
     temp_c = temps[-1][0]
     if version is None:
-        version = ngspice_tools.ngspice_version() or "ngspice (version unknown)"
+        version = ngspice_tools.version_label()
     title = text.splitlines()[0].lstrip("* ").strip()
     lines = [
         f"# {title}",
@@ -179,46 +115,18 @@ def simulate(netlist: Path, version: str | None = None) -> str:
 
 def regenerate(out_dir: Path = HERE, folder: Path = HERE) -> list[Path]:
     """Simulate every netlist in ``folder`` and write ``<name>.csv`` into ``out_dir``."""
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    version = ngspice_tools.ngspice_version() or "ngspice (version unknown)"
-    written = []
-    for case in cases(folder):
-        target = out_dir / case.csv.name
-        target.write_text(simulate(case.netlist, version))
-        written.append(target)
-    return written
+    return ngspice_tools.simulate_cases(
+        out_dir, cases(folder), lambda case, version: simulate(case.netlist, version)).paths
 
 
-def _numbers(path: Path) -> np.ndarray:
-    rows = [s.split(",")[1:] for s in path.read_text().splitlines()
-            if s.strip() and not s.startswith("#") and s != HEADER]
-    return np.array(rows, dtype=float)
+def numbers(path: Path) -> np.ndarray:
+    """The numeric columns of a CSV written here (current, voltage, temperature)."""
+    return ngspice_tools.csv_numbers(path, HEADER)
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n", 1)[0])
-    ap.add_argument("--out", type=Path, default=HERE, help="folder for the CSVs (default: here)")
-    ap.add_argument("--check", action="store_true",
-                    help="simulate into a temporary folder and compare with the committed CSVs")
-    args = ap.parse_args(argv)
-    if not args.check:
-        for p in regenerate(args.out):
-            print(p)
-        return 0
-    with tempfile.TemporaryDirectory() as tmp:
-        bad = 0
-        for p in regenerate(Path(tmp)):
-            old = HERE / p.name
-            if not old.is_file():
-                print(f"{p.name}: not committed")
-                bad += 1
-                continue
-            a, b = _numbers(old), _numbers(p)
-            same = a.shape == b.shape and np.allclose(a, b, rtol=1e-9, atol=0.0)
-            print(f"{p.name}: {'same' if same else 'DIFFERS'}")
-            bad += not same
-    return 1 if bad else 0
+    return ngspice_tools.regenerate_main(argv, doc=__doc__, folder=HERE, regenerate=regenerate,
+                                         numbers=numbers)
 
 
 if __name__ == "__main__":

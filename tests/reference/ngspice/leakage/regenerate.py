@@ -25,10 +25,8 @@ reruns this when ngspice is present and requires the fresh data to equal them.
 
 from __future__ import annotations
 
-import argparse
 import re
 import sys
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -40,6 +38,7 @@ if str(TESTS) not in sys.path:
     sys.path.insert(0, str(TESTS))
 
 import ngspice_tools  # noqa: E402  (tests/ngspice_tools.py)
+from ngspice_tools import assignments as _assignments, spice_number  # noqa: E402
 
 HEADER = "device,reverse_voltage_V,reverse_current_A,temperature_C"
 REPORT_V = 20.0        # the voltage truth.csv reports the current at, as kinset does ...
@@ -48,23 +47,6 @@ TRUTH_HEADER = ("device,temperature_C,ir_A_at_20V,bv_V,limit_V,limit_A,breakdown
                 "rsh_ohm,IS,N,BV,IBV,NBV," + ",".join(f"ir_A_at_{v:g}V" for v in BETWEEN_V))
 NUMBER = "%.10e"
 STEP_V = 0.25          # the DC sweep's step in every netlist
-
-_SCALE = {"t": 1e12, "g": 1e9, "meg": 1e6, "k": 1e3, "mil": 25.4e-6, "m": 1e-3,
-          "u": 1e-6, "n": 1e-9, "p": 1e-12, "f": 1e-15}
-_NUM = re.compile(r"^([+-]?(?:\d+\.?\d*|\.\d+)(?:e[+-]?\d+)?)(meg|mil|[tgkmunpf])?",
-                  re.IGNORECASE)
-
-
-def spice_number(text: str) -> float:
-    """A SPICE number: ``2.5e-9``, ``30G``, ``200meg``; trailing letters are units."""
-    m = _NUM.match(text.strip())
-    if not m:
-        raise ValueError(f"not a SPICE number: {text!r}")
-    return float(m.group(1)) * _SCALE.get((m.group(2) or "").lower(), 1.0)
-
-
-def _assignments(text: str) -> dict[str, str]:
-    return {k.upper(): v for k, v in re.findall(r"([A-Za-z]\w*)\s*=\s*([^\s=(),]+)", text)}
 
 
 def directives(text: str) -> dict[str, str]:
@@ -124,22 +106,11 @@ def cases(folder: Path = HERE) -> list[Case]:
     return [case_of(p) for p in sorted(folder.glob("*.cir")) if p.stem != "bv_point"]
 
 
-def _check_temperature(result, case_name: str, temp: float, tnom: float = 25.0) -> None:
-    temps = result.analysis_temperatures()
-    if not temps:
-        raise ngspice_tools.NgspiceError(f"{case_name}: ngspice reported no analysis")
-    for t, tn in temps:
-        if abs(t - temp) > 1e-9 or abs(tn - tnom) > 1e-9:
-            raise ngspice_tools.NgspiceError(
-                f"{case_name}: ngspice ran at TEMP {t} C, TNOM {tn} C; the deck asks for "
-                f"{temp} C, {tnom} C")
-
-
 def simulate(case: Case, version: str) -> tuple[str, str]:
     """Run one sweep netlist; the CSV text and its truth.csv row."""
     text = case.netlist.read_text()
     result = ngspice_tools.run_deck(text, ensure_format=False)
-    _check_temperature(result, case.name, case.temperature_C)
+    ngspice_tools.check_temperatures(result, case.name, case.temperature_C, 25.0)
     sweep = result.table("sweep.txt")
     volt, cur = np.real(sweep.scale), np.real(sweep["ir"])
     grid = np.round(volt / STEP_V).astype(int)
@@ -180,7 +151,7 @@ def simulate(case: Case, version: str) -> tuple[str, str]:
 def simulate_bv_point(netlist: Path, version: str) -> str:
     text = netlist.read_text()
     result = ngspice_tools.run_deck(text, ensure_format=False)
-    _check_temperature(result, netlist.stem, 25.0)
+    ngspice_tools.check_temperatures(result, netlist.stem, 25.0, 25.0)
     table = result.table("bv_point.txt")
     v, i = float(np.real(table["vr"][0])), float(np.real(table["ir"][0]))
     lines = [f"# {text.splitlines()[0].lstrip('* ').strip()}",
@@ -194,53 +165,25 @@ def simulate_bv_point(netlist: Path, version: str) -> str:
 
 def regenerate(out_dir: Path = HERE, folder: Path = HERE) -> list[Path]:
     """Simulate every netlist in ``folder`` and write the CSVs into ``out_dir``."""
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    version = ngspice_tools.ngspice_version() or "ngspice (version unknown)"
-    written, truth = [], []
-    for case in cases(folder):
-        text, row = simulate(case, version)
-        (out_dir / case.csv.name).write_text(text)
-        written.append(out_dir / case.csv.name)
-        truth.append(row)
-    (out_dir / "truth.csv").write_text(
-        f"# what ngspice ({version}) gives for each netlist, at the netlist's temperature: "
-        f"the current at exactly 20 V, the voltage at the breakdown current and at the "
-        f"current limit, the card and shunt, and the current at voltages between readings\n"
-        f"# regenerate: python tests/reference/ngspice/leakage/regenerate.py\n"
-        + TRUTH_HEADER + "\n" + "\n".join(truth) + "\n")
-    written.append(out_dir / "truth.csv")
-    (out_dir / "bv_point.csv").write_text(simulate_bv_point(folder / "bv_point.cir", version))
-    written.append(out_dir / "bv_point.csv")
-    return written
+    out = ngspice_tools.simulate_cases(out_dir, cases(folder), simulate)
+    out.add("truth.csv",
+            f"# what ngspice ({out.version}) gives for each netlist, at the netlist's temperature: "
+            f"the current at exactly 20 V, the voltage at the breakdown current and at the "
+            f"current limit, the card and shunt, and the current at voltages between readings\n"
+            f"# regenerate: python tests/reference/ngspice/leakage/regenerate.py\n"
+            + TRUTH_HEADER + "\n" + "\n".join(out.rows) + "\n")
+    out.add("bv_point.csv", simulate_bv_point(folder / "bv_point.cir", out.version))
+    return out.paths
 
 
 def numbers(path: Path) -> np.ndarray:
     """The numeric cells of a CSV written here (the device column left out)."""
-    rows = [s.split(",")[1:] for s in path.read_text().splitlines()
-            if s.strip() and not s.startswith("#") and not s.startswith("device,")]
-    return np.array(rows, dtype=float)
+    return ngspice_tools.csv_numbers(path)
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n", 1)[0])
-    ap.add_argument("--out", type=Path, default=HERE, help="folder for the CSVs (default: here)")
-    ap.add_argument("--check", action="store_true",
-                    help="simulate into a temporary folder and compare with the committed CSVs")
-    args = ap.parse_args(argv)
-    if not args.check:
-        for p in regenerate(args.out):
-            print(p)
-        return 0
-    with tempfile.TemporaryDirectory() as tmp:
-        bad = 0
-        for p in regenerate(Path(tmp)):
-            old = HERE / p.name
-            same = old.is_file() and numbers(old).shape == numbers(p).shape and np.allclose(
-                numbers(old), numbers(p), rtol=1e-9, atol=0.0, equal_nan=True)
-            print(f"{p.name}: {'same' if same else 'DIFFERS'}")
-            bad += not same
-    return 1 if bad else 0
+    return ngspice_tools.regenerate_main(argv, doc=__doc__, folder=HERE, regenerate=regenerate,
+                                         numbers=numbers, equal_nan=True)
 
 
 if __name__ == "__main__":

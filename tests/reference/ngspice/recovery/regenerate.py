@@ -24,10 +24,8 @@ reruns this when ngspice is present and requires the fresh data to equal them.
 
 from __future__ import annotations
 
-import argparse
 import re
 import sys
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -161,49 +159,22 @@ def simulate(case: Case, version: str) -> tuple[str, str]:
 
 
 def regenerate(out_dir: Path = HERE, folder: Path = HERE) -> list[Path]:
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    version = ngspice_tools.ngspice_version() or "ngspice (version unknown)"
-    written, truth = [], []
-    for case in cases(folder):
-        text, row = simulate(case, version)
-        (out_dir / case.csv.name).write_text(text)
-        written.append(out_dir / case.csv.name)
-        truth.append(row)
-    (out_dir / "truth.csv").write_text(
-        f"# reference values from the 10 ps transients of {version} (definitions in "
-        f"regenerate.py: reference_values); SI units\n"
-        f"# regenerate: python tests/reference/ngspice/recovery/regenerate.py\n"
-        + TRUTH_HEADER + "\n" + "\n".join(truth) + "\n")
-    written.append(out_dir / "truth.csv")
-    return written
+    out = ngspice_tools.simulate_cases(out_dir, cases(folder), simulate)
+    out.add("truth.csv",
+            f"# reference values from the 10 ps transients of {out.version} (definitions in "
+            f"regenerate.py: reference_values); SI units\n"
+            f"# regenerate: python tests/reference/ngspice/recovery/regenerate.py\n"
+            + TRUTH_HEADER + "\n" + "\n".join(out.rows) + "\n")
+    return out.paths
 
 
 def numbers(path: Path) -> np.ndarray:
-    rows = [s.split(",")[1:] for s in path.read_text().splitlines()
-            if s.strip() and not s.startswith("#") and not s.startswith("device,")]
-    return np.array(rows, dtype=float)
+    return ngspice_tools.csv_numbers(path)
 
 
 def main(argv: list[str] | None = None) -> int:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n", 1)[0])
-    ap.add_argument("--out", type=Path, default=HERE)
-    ap.add_argument("--check", action="store_true",
-                    help="simulate into a temporary folder and compare with the committed CSVs")
-    args = ap.parse_args(argv)
-    if not args.check:
-        for p in regenerate(args.out):
-            print(p)
-        return 0
-    with tempfile.TemporaryDirectory() as tmp:
-        bad = 0
-        for p in regenerate(Path(tmp)):
-            old = HERE / p.name
-            same = old.is_file() and numbers(old).shape == numbers(p).shape and np.allclose(
-                numbers(old), numbers(p), rtol=1e-9, atol=0.0)
-            print(f"{p.name}: {'same' if same else 'DIFFERS'}")
-            bad += not same
-    return 1 if bad else 0
+    return ngspice_tools.regenerate_main(argv, doc=__doc__, folder=HERE, regenerate=regenerate,
+                                         numbers=numbers)
 
 
 if __name__ == "__main__":
