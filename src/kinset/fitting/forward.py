@@ -35,6 +35,7 @@ POOR_FIT_RMS_V = 5e-3       # [V] rms residual above which the law does not desc
 SELF_HEATING_SHIFT_V = 0.5e-3   # [V] warn above this forward-voltage shift (issue 2)
 TEMPCO_NO_MODEL = -2e-3     # [V/K] silicon near 1 mA, common practice; used without a fit
 N_BOUNDS = (0.2, 20.0)
+SE_FRACTION = 1e-2          # converged when a step is below this fraction of each standard error
 USUAL_N = (0.8, 4.0)        # outside this, a junction diode's N is suspicious (common practice)
 
 
@@ -64,18 +65,34 @@ def _model(lnis, n, rs, lni, cur, lt, theta_m1, vt, xti, eg):
     return v, np.stack([d_lnis, d_n, cur], axis=1)
 
 
-def _start(idx, k, lni, cur, vadj, vt):
-    """Linear least squares of the adjusted voltage on [Vt ln I, -Vt, I]."""
+def _linear(idx, k, lni, cur, y, vt, summer):
+    """Linear least squares of y on [Vt ln I, -Vt, I] per device: (N, N ln IS0, RS)."""
     x = np.stack([vt * lni, -vt, cur], axis=1)
-    jtj, jtr = grouped_normal_equations(idx, x, vadj, k)
+    jtj, jtr = grouped_normal_equations(idx, x, y, k, summer)
     c = solve_stack(jtj, jtr)
     neg = ~(c[:, 2] >= 0)              # RS < 0 or NaN: refit with RS = 0
     if neg.any():
-        c2 = solve_stack(jtj[neg][:, :2, :2], jtr[neg][:, :2])
-        c[neg, :2] = c2
+        c[neg, :2] = solve_stack(jtj[neg][:, :2, :2], jtr[neg][:, :2])
         c[neg, 2] = 0.0
     n = np.clip(c[:, 0], *N_BOUNDS)
     return np.stack([c[:, 1] / c[:, 0], n, c[:, 2]], axis=1)
+
+
+def _start(idx, k, lni, cur, vadj, vt, lt, theta_m1, xti, eg):
+    r"""Starting values: the linear fit, then once more with the ln(1 + I/IS) correction.
+
+    With :math:`I \gg I_S` the model is linear in (N, N ln IS0, RS); the term
+    :math:`N V_t[\ln(1 + e^{x}) - x]` it leaves out matters only within a few decades of
+    IS, and one fixed-point pass with it taken from the first fit removes most of it.
+    """
+    summer = group_summer(idx, k)
+    p = _linear(idx, k, lni, cur, vadj, vt, summer)
+    ln_is_t = p[idx, 0] + (xti / p[idx, 1]) * lt + theta_m1 * eg / (p[idx, 1] * vt)
+    x = lni - ln_is_t
+    # softplus(x) − x, written so that neither term overflows
+    correction = p[idx, 1] * vt * (np.log1p(np.exp(-np.abs(x))) - np.minimum(x, 0.0))
+    good = np.isfinite(correction)
+    return _linear(idx, k, lni, cur, vadj - np.where(good, correction, 0.0), vt, summer)
 
 
 def levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, xti, eg, p0,
@@ -137,7 +154,14 @@ def levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, xti, eg, p0,
         ssr[groups[better]] = new[better]
         lam[groups] = np.where(better, lam[groups] / 5.0, lam[groups] * 5.0)
         small = (np.abs(step) <= 1e-9 * (1.0 + np.abs(p[groups]))).all(axis=1)
-        finished = (better & (gain < rtol)) | (lam[groups] > 1e10) | small | bad
+        # An accepted step far below every parameter's standard error changes nothing
+        # that could be measured: stop there (the SE from the undamped JᵀJ).
+        dof = m[groups] - 3
+        with np.errstate(invalid="ignore", divide="ignore"):
+            se = np.sqrt(np.where(dof > 0, old / np.maximum(dof, 1), np.nan)[:, None]
+                         * inverse_diagonal(jtj))
+        negligible = (np.abs(step) <= SE_FRACTION * se).all(axis=1)
+        finished = (better & (gain < rtol)) | negligible | (lam[groups] > 1e10) | small | bad
         # Keep the residuals and Jacobian of the accepted points for the next step.
         keep_row = better[li]
         r = np.where(keep_row, r_new, r)
@@ -273,7 +297,7 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
         lt = np.log(t / s.reference_temperature)
         theta_m1 = t / s.reference_temperature - 1.0
         vadj = v + s.xti * vt * lt + theta_m1 * s.activation_energy
-        p0 = _start(idx, k, lni, c, vadj, vt)
+        p0 = _start(idx, k, lni, c, vadj, vt, lt, theta_m1, s.xti, s.activation_energy)
         p, ssr, m, ok = levenberg_marquardt(idx, k, lni, c, v, lt, theta_m1, vt, s.xti,
                                             s.activation_energy, p0)
         _, jac = _model(p[idx, 0], p[idx, 1], p[idx, 2], lni, c, lt, theta_m1, vt,
