@@ -26,6 +26,7 @@ include: "rules/recovery.smk"
 include: "rules/capacitance.smk"
 include: "rules/devices.smk"
 include: "rules/match.smk"
+include: "rules/report.smk"
 
 
 rule all:

@@ -81,6 +81,13 @@ def _cmd_partners(args) -> None:
         print(table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
 
 
+def _cmd_report(args) -> None:
+    from kinset.report import write_report
+    r = write_report(args.results, args.application, args.output, args.match)
+    print(f"report: {r.sets} sets, {r.placed} parts placed, {r.unmatched} not placed; "
+          f"{r.folder / 'report.html'} ({r.page_bytes} bytes)", file=sys.stderr)
+
+
 def _cmd_demo(args) -> None:
     from kinset.demo import write_demo
     try:
@@ -140,6 +147,14 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--application", help="profile (default: the reel's first application)")
     b.add_argument("--top", type=int, default=10)
     b.set_defaults(func=_cmd_partners)
+
+    o = sub.add_parser("report", help="one application's report.html, models.lib, pick_list.csv")
+    o.add_argument("--results", required=True, help="folder holding the extraction tables")
+    o.add_argument("--application", required=True, help="shipped profile name or YAML path")
+    o.add_argument("-o", "--output", required=True, help="output folder")
+    o.add_argument("--match", help="folder of that application's sets.csv, unmatched.csv, "
+                   "summary.json (default: the output folder)")
+    o.set_defaults(func=_cmd_report)
 
     m = sub.add_parser("demo", help="write a synthetic reel folder")
     m.add_argument("--out", required=True)

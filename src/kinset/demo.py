@@ -529,7 +529,7 @@ self_heating: correct
 accuracy:
   voltage: {{gain: 1.0e-4, offset_V: 1.0e-4}}
   current: {{gain: 5.0e-4, offset_A: 1.0e-9}}
-  capacitance: {{gain: 1.0e-2, offset_F: 2.0e-14}}
+  capacitance: {{gain: 1.0e-3, offset_F: 1.0e-14}}
   time: {{gain: 1.0e-2, offset_s: 5.0e-11}}
 recovery:
   forward_current_A: 0.01
@@ -538,6 +538,8 @@ recovery:
 leakage:
   report_at_V: [20]
   breakdown_current_A: 1.0e-4
+# The workshop's two jobs this week: mixer quads and overdrive clipper pairs.
+applications: [ring_mixer_quad, audio_clipper_pair]
 """
 
 

@@ -21,6 +21,11 @@ from kinset.extract import EXTRACTORS, SETTINGS_USED
 from kinset.io.reel import Reel, load_reel
 from kinset.matching.profile import resolve_profile
 
+# What the report rule writes per application, and the side tables it reads beside a
+# dataset's table (written by the same extraction job).
+REPORT_OUTPUTS = ("report.html", "models.lib", "pick_list.csv")
+REPORT_SIDE_TABLES = {"forward": ("_readings",), "capacitance": ("_points",)}
+
 SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 BUCKET_PATTERN = r"[A-Za-z0-9][A-Za-z0-9._-]*"
 
@@ -99,7 +104,13 @@ class Plan:
         out.append(str(self.out / "reel.json"))
         for name in self.applications:
             out += [str(self.out / name / f) for f in ("sets.csv", "unmatched.csv", "summary.json")]
+            out += [str(self.out / name / f) for f in REPORT_OUTPUTS]
         return out
+
+    def report_tables(self) -> list[str]:
+        """The extraction tables a report reads: each dataset's table and its side tables."""
+        return [str(self.out / f"{d}{side}.csv") for d in self.datasets
+                for side in ("",) + REPORT_SIDE_TABLES.get(d, ())]
 
     def profile(self, application: str) -> str:
         return self.applications[application]

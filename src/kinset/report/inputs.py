@@ -74,6 +74,14 @@ class ReportInputs:
         return dict(zip(d["device"], d["position"]))
 
 
+def rows_by_device(table: pd.DataFrame | None) -> dict[str, dict]:
+    """Each device's row of a per-device table as a dict (the first row if repeated)."""
+    if table is None or not len(table):
+        return {}
+    t = table.drop_duplicates("device", keep="first")
+    return dict(zip(t["device"].astype(str), t.to_dict("records")))
+
+
 def fingerprint(path: Path, label: str) -> InputFile:
     digest = hashlib.sha256()
     with open(path, "rb") as fh:
@@ -98,7 +106,10 @@ def _profile_label(profile: Profile) -> str:
     return profile.path.name
 
 
-def _read_csv(path: Path, what: str) -> pd.DataFrame:
+def _read_csv(path: Path, what: str, empty: tuple[str, ...] | None = None) -> pd.DataFrame:
+    """A result table; a blank file is an empty table with the ``empty`` columns."""
+    if empty is not None and not path.read_bytes().strip():
+        return pd.DataFrame(columns=list(empty))
     try:
         return read_result(path)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, UnicodeDecodeError) as exc:
@@ -138,9 +149,10 @@ def load_inputs(results: str | Path, application: str,
         if not (match_folder / name).is_file():
             raise InputError(f"no {name}: run 'kinset match' for this application first",
                              match_folder / name)
-    sets = _read_csv(seen(match_folder / "sets.csv"), "sets.csv")
+    sets = _read_csv(seen(match_folder / "sets.csv"), "sets.csv", ("set", "device", "position"))
     _need(sets, ("set", "device"), match_folder / "sets.csv")
-    unmatched = _read_csv(seen(match_folder / "unmatched.csv"), "unmatched.csv")
+    unmatched = _read_csv(seen(match_folder / "unmatched.csv"), "unmatched.csv",
+                          ("device", "reason", "position", "stage"))
     _need(unmatched, ("device", "reason"), match_folder / "unmatched.csv")
     if "reason" in unmatched:
         unmatched["reason"] = unmatched["reason"].fillna("").astype(str)

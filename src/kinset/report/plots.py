@@ -11,6 +11,7 @@ would apply to the whole page) is dropped, the page's own CSS scopes it instead.
 
 from __future__ import annotations
 
+import functools
 import io
 import math
 import re
@@ -19,7 +20,9 @@ from dataclasses import dataclass, field
 import matplotlib
 import numpy as np
 from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
+from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
 
 from kinset.format import si
 from kinset.physics.capacitance import junction_capacitance
@@ -41,7 +44,6 @@ MEMBER_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<")
 STYLE = {
     "svg.hashsalt": "kinset-report",
     "svg.fonttype": "none",
-    "font.family": ["DejaVu Sans", "sans-serif"],
     "font.size": 7.5,
     "axes.titlesize": 8,
     "axes.labelsize": 7.5,
@@ -69,23 +71,64 @@ SVG_METADATA = {"Date": None, "Creator": None, "Format": None, "Type": None}
 _PROLOG = re.compile(r"^.*?(?=<svg\b)", re.S)
 _METADATA = re.compile(r"<metadata>.*?</metadata>\s*", re.S)
 _STYLE = re.compile(r"<style[^>]*>.*?</style>\s*", re.S)
+# matplotlib names its whole fallback font list in every text element; the page's CSS
+# sets one generic family for all plots instead (smaller, and looks like the page).
+_FONT_FAMILY = re.compile(r"font-family: [^;\"]*(?:; )?")
+_ATTRIBUTE = re.compile(r'(?<=[a-z])="([^"]*)"')
+_DECIMALS = re.compile(r"(\d+\.\d{2})\d+")
+_NO_ROTATION = re.compile(r' transform="rotate\(-0 [^"]*\)"')
+_INDENT = re.compile(r"\n\s+")
 
 
-def svg_text(fig: Figure, key: str, label: str) -> str:
+def _short_attribute(match: re.Match) -> str:
+    """Coordinates to 0.01 pt (1/7200 inch, far below what print or screen shows)."""
+    return '="' + _DECIMALS.sub(r"\1", match.group(1)).replace(" \n", " ") + '"'
+
+
+def styled(draw):
+    """Run a figure function inside the report's matplotlib style (and only there)."""
+    @functools.wraps(draw)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(STYLE):
+            return draw(*args, **kwargs)
+    return wrapper
+
+
+def svg_text(fig: Figure, key: str, label: str, css_class: str = "plot") -> str:
     """The figure as an ``<svg>`` element for inlining in HTML, ids prefixed with ``key``."""
     buf = io.StringIO()
-    with matplotlib.rc_context(STYLE):
-        fig.savefig(buf, format="svg", metadata=SVG_METADATA)
+    fig.savefig(buf, format="svg", metadata=SVG_METADATA)
     text = _STYLE.sub("", _METADATA.sub("", _PROLOG.sub("", buf.getvalue(), count=1)))
+    text = _FONT_FAMILY.sub("", _NO_ROTATION.sub("", text))
+    text = _INDENT.sub("\n", _ATTRIBUTE.sub(_short_attribute, text))
     text = text.replace(' id="', f' id="{key}-').replace('href="#', f'href="#{key}-') \
                .replace("url(#", f"url(#{key}-")
     label = label.replace("&", "&amp;").replace('"', "&quot;").replace("<", "&lt;")
-    return text.replace("<svg ", f'<svg class="plot" role="img" aria-label="{label}" ', 1).strip()
+    return text.replace("<svg ", f'<svg class="{css_class}" role="img" aria-label="{label}" ',
+                        1).strip()
 
 
 def _figure(width: float, height: float) -> Figure:
-    with matplotlib.rc_context(STYLE):
-        return Figure(figsize=(width, height), layout="constrained")
+    # Fixed margins, not a layout engine: constrained layout measures every tick label
+    # twice and was most of the report's run time.
+    return Figure(figsize=(width, height))
+
+
+def _margins(fig: Figure, rows: int, left: float = 0.62, bottom: float = 0.42,
+             top: float = 0.24, right: float = 0.12, hspace: float = 0.62,
+             wspace: float = 0.62) -> None:
+    """Subplot margins in inches (converted to the figure fractions matplotlib takes)."""
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=left / w, right=1 - right / w, bottom=bottom / h, top=1 - top / h,
+                        hspace=hspace / ((h - top - bottom) / rows),
+                        wspace=wspace / (w / 2))
+
+
+def _log_axis(axis, unit: str, numticks: int = 6) -> None:
+    """A log axis with SI-labelled decades and no minor ticks (small, quick SVG)."""
+    axis.set_major_locator(LogLocator(numticks=numticks))
+    axis.set_minor_locator(NullLocator())
+    axis.set_major_formatter(_si_formatter(unit))
 
 
 def _prefix(values, unit: str) -> tuple[float, str]:
@@ -107,10 +150,13 @@ def _si_formatter(unit: str) -> FuncFormatter:
 
 # --------------------------------------------------------------------------- yield
 
+@styled
 def funnel_figure(stages: list[tuple[str, int]], key: str) -> str:
     """Horizontal bars: parts at each step from 'seen' to 'placed in sets'."""
-    fig = _figure(6.2, 0.45 + 0.32 * len(stages))
+    fig = _figure(6.2, 0.55 + 0.3 * len(stages))
     ax = fig.add_subplot()
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=2.1 / w, right=1 - 0.15 / w, bottom=0.4 / h, top=1 - 0.08 / h)
     labels = [s for s, _ in stages][::-1]
     counts = np.array([n for _, n in stages][::-1], dtype=float)
     top = max(counts.max() if len(counts) else 0, 1)
@@ -122,7 +168,8 @@ def funnel_figure(stages: list[tuple[str, int]], key: str) -> str:
     ax.set_xlim(0, top * 1.12)
     ax.set_xlabel("parts")
     ax.grid(axis="y", visible=False)
-    return svg_text(fig, key, "yield: parts seen, with data, passing screening, placed in sets")
+    return svg_text(fig, key, "yield: parts seen, with data, passing screening, placed in sets",
+                    "plot narrow")
 
 
 # --------------------------------------------------------------------------- distributions
@@ -140,10 +187,12 @@ class Panel:
     limits: list[tuple[str, float]] = field(default_factory=list)   # ("max", value)
 
 
+@styled
 def distributions_figure(panels: list[Panel], key: str, columns: int = 3) -> str:
     rows = math.ceil(len(panels) / columns)
-    fig = _figure(7.2, 1.95 * rows)
+    fig = _figure(7.2, 0.3 + 2.0 * rows)
     axes = fig.subplots(rows, columns, squeeze=False)
+    _margins(fig, rows, left=0.5, top=0.5, wspace=0.55, hspace=0.7)
     for ax in axes.flat[len(panels):]:
         ax.set_visible(False)
     for ax, p in zip(axes.flat, panels):
@@ -152,14 +201,12 @@ def distributions_figure(panels: list[Panel], key: str, columns: int = 3) -> str
         x = v[ok]
         lims = [val for _, val in p.limits]
         if p.log:
-            lo, hi = np.log10(min([x.min()] + [l for l in lims if l > 0])), \
-                np.log10(max([x.max()] + [l for l in lims if l > 0]))
-            lo, hi = (lo - 0.5, hi + 0.5) if hi - lo < 1e-9 else (lo, hi)
+            pos = [val for val in lims if val > 0]
+            lo, hi = np.log10(min([x.min()] + pos)), np.log10(max([x.max()] + pos))
+            lo, hi = (lo - 0.5, hi + 0.5) if hi - lo < 1e-9 else (lo - 0.05, hi + 0.05)
             bins = np.logspace(lo, hi, 41)
             ax.set_xscale("log")
-            ax.xaxis.set_major_locator(LogLocator(numticks=5))
-            ax.xaxis.set_minor_formatter(NullFormatter())
-            ax.xaxis.set_major_formatter(_si_formatter(p.unit))
+            _log_axis(ax.xaxis, p.unit, 5)
             factor, unit = 1.0, p.unit
         else:
             factor, unit = _prefix(x, p.unit)
@@ -167,22 +214,25 @@ def distributions_figure(panels: list[Panel], key: str, columns: int = 3) -> str
             span = hi - lo if hi > lo else max(abs(hi), 1e-30) * 0.01
             bins = np.linspace(lo - 0.02 * span, hi + 0.02 * span, 41) / factor
         xs = x if p.log else x / factor
-        ax.hist(xs, bins=bins, color=ALL_PARTS, label=f"all parts ({len(x)})")
+        ax.hist(xs, bins=bins, color=ALL_PARTS, histtype="stepfilled")
         placed = p.placed[ok]
         if placed.any():
-            ax.hist(xs[placed], bins=bins, color=PLACED, label=f"placed ({int(placed.sum())})")
-        for kind, val in p.limits:
+            ax.hist(xs[placed], bins=bins, color=PLACED, histtype="stepfilled")
+        for _kind, val in p.limits:
             ax.axvline(val if p.log else val / factor, color=LIMIT, linewidth=1.2,
-                       linestyle="--", label=f"screen {kind} {si(val, p.unit)}")
+                       linestyle="--")
         dmg = p.damaged[ok]
         if dmg.any():
             ax.plot(xs[dmg], np.zeros(int(dmg.sum())), linestyle="none", marker="x",
-                    color=DAMAGED, markersize=4.5, clip_on=False,
-                    label=f"possible damage ({int(dmg.sum())})")
-        ax.set_title(p.title, loc="left")
-        ax.set_xlabel(unit)
+                    color=DAMAGED, markersize=4.5, clip_on=False)
+        ax.set_title(f"{p.title} ({len(x)} parts)", loc="left")
+        ax.set_xlabel(unit or "[1]")
         ax.set_ylabel("parts")
-        ax.legend(loc="upper right", handlelength=1.2)
+    handles = [Patch(color=ALL_PARTS, label="all parts"), Patch(color=PLACED, label="placed in sets"),
+               Line2D([], [], color=LIMIT, linestyle="--", label="screening limit"),
+               Line2D([], [], color=DAMAGED, marker="x", linestyle="none",
+                      label="possible damage (leakage)")]
+    fig.legend(handles=handles, loc="upper center", ncol=4, bbox_to_anchor=(0.5, 1.0))
     return svg_text(fig, key, "distributions of the reel with screening limits")
 
 
@@ -194,7 +244,7 @@ class Member:
 
     device: str
     forward: dict | None = None          # forward.csv row
-    readings: tuple | None = None        # (current, voltage, used) arrays
+    readings: tuple | None = None        # (current, voltage, used, temperature [K]) arrays
     capacitance: dict | None = None      # capacitance.csv row
     cv_points: tuple | None = None       # (reverse voltage, capacitance, used) arrays
     recovery: dict | None = None         # recovery.csv row
@@ -207,6 +257,12 @@ def _f(row: dict | None, col: str) -> float:
         return float(row.get(col, math.nan))
     except (TypeError, ValueError):
         return math.nan
+
+
+def _label(device: str) -> str:
+    """A device id as legend text: '$' would start mathtext, a leading '_' hides the entry."""
+    text = str(device).replace("$", r"\$")
+    return " " + text if text.startswith("_") else text
 
 
 def _fitted(row: dict | None) -> bool:
@@ -223,6 +279,7 @@ def _fwd_voltage(row: dict, current: np.ndarray, temperature: float | None = Non
     return voltage_from_current(current, i_s, _f(row, "n"), _f(row, "rs_ohm"), t)
 
 
+@styled
 def set_figure(members: list[Member], currents: list[float], temperature: float,
                key: str, label: str) -> str:
     """Forward curves (measured and fitted), their deviation from the set's mean,
@@ -231,44 +288,52 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
     has_rr = any(m.recovery is not None and math.isfinite(_f(m.recovery, "tt_s"))
                  for m in members)
     fitted = [m for m in members if _fitted(m.forward)]
-    n_panels = 1 + (len(fitted) >= 2) + has_cv + has_rr
+    has_fwd = any(m.readings is not None or _fitted(m.forward) for m in members)
+    n_panels = has_fwd + (len(fitted) >= 2) + has_cv + has_rr
+    if not n_panels:
+        return ""
     cols = 2 if n_panels > 1 else 1
     rows = math.ceil(n_panels / cols)
-    fig = _figure(7.2 if cols == 2 else 3.8, 2.35 * rows)
+    fig = _figure(7.2 if cols == 2 else 3.8, 2.4 * rows)
     axes = list(fig.subplots(rows, cols, squeeze=False).flat)
+    _margins(fig, rows)
     for ax in axes[n_panels:]:
         ax.set_visible(False)
     style = {m.device: (MEMBER_COLORS[i % len(MEMBER_COLORS)],
                         MEMBER_MARKERS[i % len(MEMBER_MARKERS)]) for i, m in enumerate(members)}
     it = iter(axes)
 
-    ax = next(it)
-    for m in members:
-        color, marker = style[m.device]
-        if m.readings is not None:
-            i, v, used = m.readings
-            ax.plot(v[used], i[used], linestyle="none", marker=marker, color=color,
-                    markerfacecolor="none", markeredgewidth=0.7)
-            if (~used).any():
-                ax.plot(v[~used], i[~used], linestyle="none", marker=marker, color=GRID,
-                        markeredgewidth=0.7, markerfacecolor="none")
-        if _fitted(m.forward):
-            cur = np.logspace(np.log10(_f(m.forward, "i_min_A")),
-                              np.log10(_f(m.forward, "i_max_A")), 60)
-            ax.plot(_fwd_voltage(m.forward, cur), cur, color=color, label=m.device)
-        else:
-            ax.plot([], [], color=color, marker=marker, linestyle="none",
-                    markerfacecolor="none", label=f"{m.device} (points only)")
-    for c in currents:
-        ax.axhline(c, color=LIMIT, linewidth=0.6, linestyle=":")
-    ax.set_yscale("log")
-    ax.yaxis.set_major_formatter(_si_formatter("A"))
-    ax.yaxis.set_minor_formatter(NullFormatter())
-    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v * 1e3:.0f}"))
-    ax.set_xlabel("forward voltage [mV]")
-    ax.set_ylabel("current")
-    ax.set_title("forward: readings (o) and fitted model (line), at TNOM", loc="left")
-    ax.legend(loc="upper left")
+    if has_fwd:
+        ax = next(it)
+        for m in members:
+            color, marker = style[m.device]
+            if m.readings is not None:
+                i, v, used, t = m.readings
+                if _fitted(m.forward) and np.isfinite(t).all():
+                    # Readings taken warmer or cooler (or self-heated) moved to TNOM with the
+                    # part's own fitted law, so that every curve and point is at one temperature.
+                    v = v + _fwd_voltage(m.forward, i) - _fwd_voltage(m.forward, i, t)
+                ax.plot(v[used], i[used], linestyle="none", marker=marker, color=color,
+                        markerfacecolor="none", markeredgewidth=0.7)
+                if (~used).any():
+                    ax.plot(v[~used], i[~used], linestyle="none", marker=marker, color=GRID,
+                            markeredgewidth=0.7, markerfacecolor="none")
+            if _fitted(m.forward):
+                cur = np.logspace(np.log10(_f(m.forward, "i_min_A")),
+                                  np.log10(_f(m.forward, "i_max_A")), 60)
+                ax.plot(_fwd_voltage(m.forward, cur), cur, color=color, label=_label(m.device))
+            else:
+                ax.plot([], [], color=color, marker=marker, linestyle="none",
+                        markerfacecolor="none", label=f"{_label(m.device)} (points only)")
+        for c in currents:
+            ax.axhline(c, color=LIMIT, linewidth=0.6, linestyle=":")
+        ax.set_yscale("log")
+        _log_axis(ax.yaxis, "A")
+        ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v * 1e3:.0f}"))
+        ax.set_xlabel("forward voltage [mV]")
+        ax.set_ylabel("current")
+        ax.set_title("forward: readings (markers) and fitted model, at TNOM", loc="left")
+        ax.legend(loc="upper left")
 
     if len(fitted) >= 2:
         ax = next(it)
@@ -279,10 +344,9 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
             volts = np.array([_fwd_voltage(m.forward, cur, temperature) for m in fitted])
             mean = volts.mean(axis=0)
             for m, v in zip(fitted, volts):
-                ax.plot(cur, (v - mean) * 1e3, color=style[m.device][0], label=m.device)
+                ax.plot(cur, (v - mean) * 1e3, color=style[m.device][0], label=_label(m.device))
             ax.set_xscale("log")
-            ax.xaxis.set_major_formatter(_si_formatter("A"))
-            ax.xaxis.set_minor_formatter(NullFormatter())
+            _log_axis(ax.xaxis, "A")
             for c in currents:
                 ax.axvline(c, color=LIMIT, linewidth=0.6, linestyle=":")
         else:
@@ -314,10 +378,10 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
                 c = junction_capacitance(vr, _f(cap, "cj0_F"), _f(cap, "vj_V"), _f(cap, "m"))
                 cp = _f(cap, "cp_F")
                 ax.plot(vr, (c + (cp if math.isfinite(cp) else 0.0)) * 1e12, color=color,
-                        label=m.device)
+                        label=_label(m.device))
         ax.set_xlabel("reverse voltage [V]")
         ax.set_ylabel("capacitance [pF]")
-        ax.set_title("C\u2013V: points (o) and fitted law (line)", loc="left")
+        ax.set_title("C\u2013V: points (markers) and fitted law (line)", loc="left")
 
     if has_rr:
         ax = next(it)
@@ -338,7 +402,7 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
             i = recovery_waveform(t, i_f, i_r, _f(r, "tt_s"), tau if math.isfinite(tau) else 0.0,
                                   0.0, switch_time=sw)
             color, marker = style[m.device]
-            ax.plot((t - t0) * 1e9, i * 1e3, color=color, label=m.device)
+            ax.plot((t - t0) * 1e9, i * 1e3, color=color, label=_label(m.device))
             trr = _f(r, "trr_s")
             if math.isfinite(trr):
                 k = np.argmin(np.abs(t - (sw + trr)))
@@ -346,6 +410,5 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
                         markerfacecolor="none", linestyle="none")
         ax.set_xlabel("time from the current's zero crossing [ns]")
         ax.set_ylabel("current [mA]")
-        ax.set_title("recovery: charge-control model of each part's fit; marker at trr",
-                     loc="left")
+        ax.set_title("recovery: model of each part's fit, marker at trr", loc="left")
     return svg_text(fig, key, label)

@@ -27,6 +27,8 @@ import re
 
 import pandas as pd
 
+from kinset.report.inputs import rows_by_device
+
 MAX_NAME = 32
 _SAFE_NAME = re.compile(r"[A-Za-z][A-Za-z0-9_]*")
 _UNSAFE_CHARS = re.compile(r"[^A-Za-z0-9_]+")
@@ -169,13 +171,6 @@ def model_card(name: str, params: dict[str, float], per_line: int = 4) -> str:
     return text + ")\n"
 
 
-def _rows(table: pd.DataFrame | None) -> dict[str, dict]:
-    if table is None or not len(table):
-        return {}
-    t = table.drop_duplicates("device", keep="first")
-    return dict(zip(t["device"].astype(str), t.to_dict("records")))
-
-
 def _position_text(pos) -> str:
     if pos is None or (isinstance(pos, float) and not math.isfinite(pos)):
         return "no position"
@@ -187,7 +182,7 @@ def _position_text(pos) -> str:
 def models_lib(sets: pd.DataFrame, tables: dict[str, pd.DataFrame], reel: dict,
                title: str, version: str) -> tuple[str, dict[str, str]]:
     """The text of ``models.lib`` and the model name of each placed device."""
-    rows = {k: _rows(tables.get(k)) for k in ("forward", "capacitance", "recovery", "leakage")}
+    rows = {k: rows_by_device(tables.get(k)) for k in ("forward", "capacitance", "recovery", "leakage")}
     order = sets.sort_values(["set"], kind="stable")
     names = model_names(order["device"].astype(str))
     tnom = reel.get("reference_temperature_C")

@@ -1,0 +1,64 @@
+"""Write one application's report.html, models.lib and pick_list.csv."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+from kinset import __version__
+from kinset.io.output import write_csv
+from kinset.report.html import render_page
+from kinset.report.inputs import load_inputs
+from kinset.report.picklist import pick_list
+from kinset.report.spice import models_lib
+
+OUTPUTS = ("report.html", "models.lib", "pick_list.csv")
+
+
+@dataclass
+class ReportResult:
+    folder: Path
+    sets: int
+    placed: int
+    unmatched: int
+    page_bytes: int
+
+
+def _write_text(path: Path, text: str, encoding: str) -> None:
+    tmp = path.with_name(path.name + ".tmp")
+    with open(tmp, "w", encoding=encoding, newline="\n") as fh:
+        fh.write(text)
+    os.replace(tmp, path)
+
+
+def write_report(results: str | Path, application: str, out: str | Path,
+                 match_folder: str | Path | None = None, version: str = __version__
+                 ) -> ReportResult:
+    """Write ``report.html``, ``models.lib`` and ``pick_list.csv`` into ``out``.
+
+    Parameters
+    ----------
+    results : path
+        Folder of the extraction tables, ``devices.csv`` and ``reel.json``.
+    application : str
+        Shipped profile name or YAML path.
+    out : path
+        Output folder.
+    match_folder : path, optional
+        Where ``kinset match`` wrote ``sets.csv``, ``unmatched.csv`` and ``summary.json``;
+        default ``out`` (the workflow writes both into ``results/<reel>/<application>/``).
+    """
+    out = Path(out)
+    inputs = load_inputs(results, application, out if match_folder is None else match_folder)
+    out.mkdir(parents=True, exist_ok=True)
+    title = (f"{inputs.profile.settings.get('name') or inputs.profile.name} "
+             f"({inputs.profile.name}), reel {inputs.reel_id}")
+    lib, names = models_lib(inputs.sets, inputs.tables, inputs.reel, title, version)
+    picks = pick_list(inputs.sets)
+    page = render_page(inputs, names, picks, lib, version)
+    _write_text(out / "models.lib", lib, "ascii")
+    write_csv(picks, out / "pick_list.csv")
+    _write_text(out / "report.html", page, "utf-8")
+    return ReportResult(out, int(inputs.sets["set"].nunique()) if len(inputs.sets) else 0,
+                        len(inputs.sets), len(inputs.unmatched), len(page.encode("utf-8")))

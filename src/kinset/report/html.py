@@ -1,0 +1,538 @@
+"""The report page: one self-contained HTML5 file per application.
+
+Everything is on the page: figures are inline SVG, the style sheet is inline, there
+is no script, and a Content-Security-Policy forbids loading anything from anywhere,
+so the page looks the same on a laptop without a network, in a browser's print
+preview, and in a bundled workflow report. Every piece of text that comes from the
+data (device ids, notes, reasons, file names, the profile's YAML) is escaped.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+import re
+
+import numpy as np
+import pandas as pd
+
+from kinset import quantities as qty
+from kinset.format import si
+from kinset.matching.criteria import _evaluate   # the matcher's own evaluation of a quantity
+from kinset.matching.profile import CONDITION_UNITS, QUANTITIES
+from kinset.report import plots
+from kinset.report.inputs import ReportInputs, rows_by_device
+from kinset.report.picklist import position_text
+
+# Sets drawn with figures; the rest are tabulated (keeps a big reel's page small).
+MAX_DRAWN_SETS = 50
+
+STAGES = {
+    "data": "lacks the data the profile needs",
+    "screen": "failed a screening limit",
+    "guard": "tolerance within the measurement guard band",
+    "sets": "passed, but no set could take it",
+}
+
+CSS = """
+:root { --ink: #222; --muted: #5c5c5c; --rule: #cfd4d8; --band: #f3f5f6; --accent: #2f5d7c;
+        --warn: #b5421f; --ok: #3f7f4a; }
+* { box-sizing: border-box; }
+html { background: #fff; color: var(--ink); }
+body { font: 15px/1.45 sans-serif; margin: 0 auto; max-width: 1120px; padding: 0 20px 40px; }
+header { border-top: 6px solid var(--accent); padding-top: 14px; margin-bottom: 10px; }
+h1 { font-size: 1.55em; margin: 0 0 4px; }
+h2 { font-size: 1.2em; margin: 30px 0 8px; padding-bottom: 3px; border-bottom: 1px solid var(--rule); }
+h3 { font-size: 1.02em; margin: 20px 0 6px; }
+p, ul { margin: 6px 0; }
+.muted { color: var(--muted); }
+.lead { font-size: 1.05em; }
+.facts { display: flex; flex-wrap: wrap; gap: 8px; margin: 10px 0; padding: 0; list-style: none; }
+.facts li { border: 1px solid var(--rule); background: var(--band); padding: 6px 12px; min-width: 120px; }
+.facts b { display: block; font-size: 1.35em; }
+nav { font-size: 0.92em; margin: 8px 0 0; }
+nav a { margin-right: 14px; color: var(--accent); }
+table { border-collapse: collapse; margin: 6px 0 10px; font-size: 0.9em; }
+th, td { text-align: left; padding: 2px 10px 2px 0; border-bottom: 1px solid var(--rule); vertical-align: top; }
+th { font-weight: 600; border-bottom: 1.5px solid var(--ink); }
+td.num, th.num { text-align: right; font-variant-numeric: tabular-nums; }
+tbody tr:nth-child(even) td { background: var(--band); }
+code, pre, .id { font-family: monospace; font-size: 0.95em; }
+pre { background: var(--band); border: 1px solid var(--rule); padding: 8px 10px; overflow-x: auto; white-space: pre-wrap; }
+.meter { position: relative; display: inline-block; width: 140px; height: 10px; border: 1px solid var(--ink); vertical-align: middle; background: #fff; }
+.meter .fill { position: absolute; left: 0; top: 0; bottom: 0; background: var(--accent); }
+.meter .guard { position: absolute; top: -3px; bottom: -3px; width: 0; border-left: 2px solid var(--warn); }
+.set { border-left: 3px solid var(--accent); padding-left: 12px; margin: 18px 0; }
+.cautions { border: 1.5px solid var(--warn); padding: 8px 14px; }
+figure { margin: 8px 0; }
+figcaption { font-size: 0.85em; color: var(--muted); }
+svg.plot { width: 100%; max-width: 900px; height: auto; display: block; }
+svg.plot.narrow { max-width: 640px; }
+svg.plot * { stroke-linejoin: round; stroke-linecap: butt; }
+svg.plot text { font-family: sans-serif; }
+.wide { overflow-x: auto; }
+@page { margin: 14mm; }
+@media print {
+  body { max-width: none; padding: 0; font-size: 10.5pt; }
+  nav { display: none; }
+  a { color: inherit; text-decoration: none; }
+  h2 { break-after: avoid; }
+  .set, figure, tr { break-inside: avoid; }
+  thead { display: table-header-group; }
+  tbody tr:nth-child(even) td { background: none; }
+}
+"""
+
+CSP = "default-src 'none'; style-src 'unsafe-inline'; img-src data:"
+
+
+def e(value) -> str:
+    """Escaped text for HTML content and attribute values."""
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def _isnum(v) -> bool:
+    return isinstance(v, (int, float, np.integer, np.floating)) and math.isfinite(float(v))
+
+
+def _num(v, unit: str = "", digits: int = 4) -> str:
+    if not _isnum(v):
+        return "\u2013"
+    return si(float(v), unit, digits) if unit else f"{float(v):.{digits}g}"
+
+
+def _table(headers: list[str], rows, numeric: set[int] = frozenset(), ident: str = "",
+           cls: str = "") -> str:
+    """A table; ``rows`` are lists of already escaped cell HTML."""
+    attrs = (f' id="{e(ident)}"' if ident else "") + (f' class="{cls}"' if cls else "")
+    head = "".join(f'<th class="num">{h}</th>' if i in numeric else f"<th>{h}</th>"
+                   for i, h in enumerate(headers))
+    body = "\n".join("<tr>" + "".join(f'<td class="num">{c}</td>' if i in numeric
+                                      else f"<td>{c}</td>" for i, c in enumerate(r)) + "</tr>"
+                     for r in rows)
+    return f"<div class=\"wide\"><table{attrs}><thead><tr>{head}</tr></thead>\n<tbody>\n{body}\n</tbody></table></div>"
+
+
+# --------------------------------------------------------------------------- reasons
+
+_SCREEN = re.compile(r"^screen: (?P<q>.+?) (?P<v>\S+ \S+) is (?P<dir>above|below) the limit (?P<lim>.+)$")
+_NUMBER = re.compile(r"[-+]?\d+(?:\.\d+)?(?:e[-+]?\d+)?(?:\s?[a-zA-Z\u00b5\u00d7%\u00b0]+)?")
+
+
+def reason_kind(reason: str) -> str:
+    """A reason with its part-specific values left out, for counting parts per reason.
+
+    The first reason of a part decides its stage and is the one counted; the values
+    of the part itself (its leakage, its measured range) are masked, the profile's
+    conditions and limits are kept.
+    """
+    first = str(reason).split("; ")[0].strip()
+    m = _SCREEN.match(first)
+    if m:
+        return f"screen: {m['q']} is {m['dir']} the limit {m['lim']}"
+    head, sep, tail = first.partition(": ")
+    return head + sep + _NUMBER.sub("\u2026", tail) if sep else _NUMBER.sub("\u2026", first)
+
+
+# --------------------------------------------------------------------------- sections
+
+def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
+    s = inp.summary
+    p = inp.profile
+    title = p.settings.get("name") or p.name
+    n_sets = int(s.get("sets", inp.sets["set"].nunique() if len(inp.sets) else 0))
+    k = int(s.get("set_size", p.set_size))
+    facts = [
+        ("sets formed", n_sets),
+        ("parts per set", k),
+        ("parts placed", s.get("parts_used", len(inp.sets))),
+        ("parts seen", s.get("parts_seen", len(inp.devices))),
+        ("not placed", len(inp.unmatched)),
+    ]
+    if "upper_bound" in s:
+        facts.append(("sets at most (bound)", s["upper_bound"]))
+    lis = "".join(f"<li><b>{e(v)}</b>{e(k_)}</li>" for k_, v in facts)
+    desc = p.settings.get("description")
+    nav = "".join(f'<a href="#{a}">{e(t)}</a>' for a, t in (
+        ("pick-list", "Pick list"), ("yield", "Yield"), ("distributions", "Distributions"),
+        ("sets", "Sets"), ("unmatched", "Unmatched parts"), ("models", "SPICE models"),
+        ("provenance", "Provenance"), ("cautions", "Cautions")))
+    return (f"<header><h1>{e(title)}: matched sets from reel {e(inp.reel_id)}</h1>"
+            + (f'<p class="muted">{e(desc)}</p>' if desc else "")
+            + f'<p class="lead">{e(n_sets)} set(s) of {e(k)} parts. Pull the {len(picks)} '
+              "parts of the pick list in tape order and put each into the bin of its set; "
+              "why every other part was left out is listed under Unmatched parts.</p>"
+            + f'<ul class="facts">{lis}</ul><nav>{nav}</nav></header>')
+
+
+def _pick_section(picks: pd.DataFrame, names: dict[str, str]) -> str:
+    rows = [[e(r.order), e(r.set), f'<span class="id">{e(r.device)}</span>', e(r.position),
+             f"<code>{e(names.get(r.device, ''))}</code>"] for r in picks.itertuples()]
+    return ('<section id="pick-list"><h2>Pick list</h2>'
+            "<p>One pass along the tape: pocket positions ascending, parts without a position "
+            "last. The same list is in <code>pick_list.csv</code>, the model cards in "
+            "<code>models.lib</code> (model names below).</p>"
+            + _table(["order", "set", "device", "position", "model"], rows, {0, 1, 3}, "picks")
+            + "</section>")
+
+
+def _yield_section(inp: ReportInputs) -> str:
+    s = inp.summary
+    left = s.get("parts_left", {}) or {}
+    seen = int(s.get("parts_seen", len(inp.devices)))
+    stages = [("parts seen", seen),
+              ("with the data the profile needs", int(s.get("parts_with_data", seen - left.get("data", 0)))),
+              ("passed screening", int(s.get("parts_passed_screen", 0))),
+              ("placed in sets", int(s.get("parts_used", len(inp.sets))))]
+    fig = plots.funnel_figure(stages, "fig-yield")
+    un = inp.unmatched
+    stage = un["stage"].fillna("").astype(str) if len(un) else pd.Series([], dtype=str)
+    kinds = pd.DataFrame({"stage": stage, "kind": [reason_kind(r) for r in un["reason"]]})
+    order = {k: i for i, k in enumerate(STAGES)}
+    counts = (kinds.groupby(["stage", "kind"], sort=False).size().reset_index(name="n")
+              if len(kinds) else pd.DataFrame(columns=["stage", "kind", "n"]))
+    if len(counts):
+        counts["o"] = counts["stage"].map(lambda x: order.get(x, len(order)))
+        counts = counts.sort_values(["o", "n", "kind"], ascending=[True, False, True], kind="stable")
+    rows = [[e(STAGES.get(r.stage, r.stage or "\u2013")), e(r.kind), e(r.n)]
+            for r in counts.itertuples()]
+    check = ""
+    total = int(s.get("parts_used", len(inp.sets))) + len(un)
+    if total != seen:
+        check = (f'<p class="muted">Note: placed ({s.get("parts_used")}) plus not placed '
+                 f"({len(un)}) is {total}, not the {seen} parts seen.</p>")
+    left_text = ", ".join(f"{n} {STAGES.get(k, k)}" for k, n in left.items()) or "none"
+    return ('<section id="yield"><h2>Yield</h2>'
+            f"<figure>{fig}<figcaption>From every part seen in any dataset to the parts placed in "
+            f"sets. Left out: {e(left_text)}.</figcaption></figure>{check}"
+            "<h3>Why parts were left out</h3><p class=\"muted\">Each part counted once, under its "
+            "first reason; its own values are masked (\u2026). Every part's full reason is under "
+            "Unmatched parts.</p>"
+            + _table(["stage", "reason", "parts"], rows, {2}, "reasons") + "</section>")
+
+
+def _damaged(inp: ReportInputs) -> set[str]:
+    leak = inp.table("leakage")
+    if leak is None or not len(leak):
+        return set()
+    note = leak["note"].fillna("").astype(str)
+    flag = (leak["status"].astype(str) == "warning") & note.str.contains("possible damage")
+    return set(leak.loc[flag, "device"].astype(str))
+
+
+def _values(ev, universe: pd.Index) -> np.ndarray:
+    if ev is None:
+        return np.full(len(universe), np.nan)
+    s = pd.Series(np.asarray(ev.value, dtype=float), index=pd.Index(ev.device.astype(str)))
+    s = s[~s.index.duplicated()]
+    return s.reindex(universe).to_numpy(dtype=float)
+
+
+def _distributions_section(inp: ReportInputs) -> str:
+    p = inp.profile
+    t = p.temperature
+    universe = pd.Index(inp.devices["device"].astype(str))
+    placed = universe.isin(set(inp.sets["device"].astype(str)))
+    damaged_set = _damaged(inp)
+    damaged = universe.isin(damaged_set)
+    panels: dict[tuple, plots.Panel] = {}
+
+    def add(key, title, unit, ev, log=False):
+        if ev is None or key in panels:
+            return
+        v = _values(ev, universe)
+        if np.isfinite(v).any():
+            panels[key] = plots.Panel(title, unit, v, placed, damaged, log)
+
+    temp = f"{t - 273.15:g} \u00b0C"
+    currents = sorted({d.condition for d in p.dimensions if d.quantity == "forward_voltage"}
+                      | {s.condition for s in p.screens if s.quantity == "forward_voltage"})
+    for c in currents:
+        add(("forward_voltage", c), f"forward voltage at {si(c, 'A')}, {temp}", "V",
+            _evaluate("forward_voltage", c, inp.tables, t))
+    add(("ideality", None), "ideality N", "", _evaluate("ideality", None, inp.tables, t))
+    add(("series_resistance", None), "series resistance RS", "\u03a9",
+        _evaluate("series_resistance", None, inp.tables, t))
+    cap = inp.table("capacitance")
+    if cap is not None:
+        add(("cjo", None), "zero-bias capacitance CJO", "F", qty.column_value(cap, "cj0_F", "CJO"))
+    add(("recovery_time", None), "recovery time trr", "s", _evaluate("recovery_time", None, inp.tables, t))
+    leak = inp.table("leakage")
+    volts = sorted({float(v) for v in (inp.reel.get("leakage") or {}).get("report_at_V", [])}
+                   | {s.condition for s in p.screens if s.quantity == "reverse_current"})
+    if leak is not None:
+        for v in volts:
+            add(("reverse_current", v), f"reverse current at {v:g} V, {temp}", "A",
+                _evaluate("reverse_current", v, inp.tables, t), log=True)
+    for s in p.screens:       # screened quantities not drawn above get their own panel
+        q = QUANTITIES[s.quantity]
+        where = f" at {si(s.condition, CONDITION_UNITS[q.condition])}" if s.condition is not None else ""
+        unit = {"ohm": "\u03a9", "V_per_K": "V/K"}.get(q.unit, q.unit)
+        add((s.quantity, s.condition), q.label + where, unit,
+            _evaluate(s.quantity, s.condition, inp.tables, t),
+            log=s.quantity in ("reverse_current", "peak_reverse_current"))
+        panel = panels.get((s.quantity, s.condition))
+        if panel is not None:
+            for kind, val in (("min", s.minimum), ("max", s.maximum)):
+                if val is not None:
+                    panel.limits.append((kind, float(val)))
+    if not panels:
+        return ('<section id="distributions"><h2>Distributions</h2><p>No fitted quantity to '
+                "draw.</p></section>")
+    fig = plots.distributions_figure(list(panels.values()), "fig-dist")
+    dmg = ""
+    if damaged_set:
+        ids = ", ".join(f'<span class="id">{e(d)}</span>' for d in sorted(damaged_set))
+        dmg = f"<p>Flagged as possibly damaged by their leakage ({len(damaged_set)}): {ids}.</p>"
+    return ('<section id="distributions"><h2>Distributions</h2>'
+            f"<figure>{fig}<figcaption>Every part of the reel (light), the parts placed in sets "
+            "(dark), screening limits (dashed) and parts whose leakage flags possible damage (\u00d7). "
+            "Values from each part's fitted model at the profile's temperature, only inside what "
+            f"was measured.</figcaption></figure>{dmg}</section>")
+
+
+def _dim_columns(inp: ReportInputs):
+    """(dimension, spread column, margin column, percent?) for each matched criterion."""
+    out = []
+    for d in inp.profile.dimensions:
+        sp = next((c for c in inp.sets.columns if c.startswith(f"{d.name}_spread")), None)
+        mg = next((c for c in inp.sets.columns if c.startswith(f"{d.name}_margin")), None)
+        out.append((d, sp, mg, bool(sp and sp.endswith("_percent"))))
+    return out
+
+
+def _dim_value(v, d, percent: bool) -> str:
+    if not _isnum(v):
+        return "\u2013"
+    if percent:
+        return f"{float(v):.3g} %"
+    unit = {"ohm": "\u03a9", "V_per_K": "V/K"}.get(d.unit, d.unit)
+    return si(float(v), unit, 3) if unit else f"{float(v):.3g}"
+
+
+def _criteria_table(inp: ReportInputs, row) -> str:
+    used = inp.summary.get("tolerance_used", {}) or {}
+    rows = []
+    for d, sp, mg, percent in _dim_columns(inp):
+        spread = row.get(sp) if sp else None
+        tol = d.tolerance * (100 if d.relative else 1)
+        eff = used.get(d.name)
+        eff = float(eff) * (100 if d.relative else 1) if _isnum(eff) else None
+        meter = ""
+        if _isnum(spread) and tol > 0:
+            fill = max(0.0, min(float(spread) / tol, 1.0)) * 100
+            guard = (f'<span class="guard" style="left:{max(0.0, min(eff / tol, 1.0)) * 100:.1f}%">'
+                     "</span>") if eff is not None else ""
+            meter = (f'<span class="meter" title="spread as a share of the tolerance">'
+                     f'<span class="fill" style="width:{fill:.1f}%"></span>{guard}</span> '
+                     f"{float(spread) / tol * 100:.0f} %")
+        rows.append([e(d.describe()), e(_dim_value(spread, d, percent)),
+                     e(_dim_value(tol, d, d.relative)),
+                     e(_dim_value(eff, d, d.relative)) if eff is not None else "\u2013",
+                     e(_dim_value(row.get(mg) if mg else None, d, percent)), meter])
+    return _table(["criterion", "spread", "tolerance", "after guard band", "margin",
+                   "spread / tolerance (mark: guard band)"], rows, {1, 2, 3, 4})
+
+
+def _groups(table: pd.DataFrame | None, wanted: set[str]) -> dict[str, pd.DataFrame]:
+    if table is None or not len(table):
+        return {}
+    dev = table["device"].astype(str)
+    sub = table[dev.isin(wanted)]
+    return {k: g for k, g in sub.groupby(sub["device"].astype(str), sort=False)}
+
+
+def _notes(dev: str, rows: dict[str, dict[str, dict]]) -> str:
+    out = []
+    for name in ("forward", "leakage", "capacitance", "recovery"):
+        r = rows[name].get(dev)
+        if r is not None and str(r.get("status")) not in ("ok", "nan", "None"):
+            out.append(f"{name} {r.get('status')}: {r.get('note')}")
+    return "; ".join(out)
+
+
+def _sets_section(inp: ReportInputs, names: dict[str, str]) -> str:
+    sets = inp.sets.copy()
+    sets["device"] = sets["device"].astype(str)
+    if not len(sets):
+        return ('<section id="sets"><h2>Sets</h2><p>No set could be formed; the reasons are '
+                "under Unmatched parts.</p></section>")
+    p = inp.profile
+    currents = sorted({d.condition for d in p.dimensions if d.quantity == "forward_voltage"})
+    set_ids = sorted(sets["set"].unique())
+    drawn = set(set_ids[:MAX_DRAWN_SETS])
+    wanted = set(sets.loc[sets["set"].isin(drawn), "device"])
+    rows = {k: rows_by_device(inp.table(k)) for k in ("forward", "leakage", "capacitance", "recovery")}
+    readings = _groups(inp.table("forward_readings"), wanted)
+    cv = _groups(inp.table("capacitance_points"), wanted)
+    parts = ['<section id="sets"><h2>Sets</h2>']
+    if len(set_ids) > MAX_DRAWN_SETS:
+        parts.append(f"<p>The first {MAX_DRAWN_SETS} of {len(set_ids)} sets are drawn; the rest "
+                     "are tabulated after them.</p>")
+    for s in set_ids[:MAX_DRAWN_SETS]:
+        block = sets[sets["set"] == s]
+        members = []
+        member_rows = []
+        for r in block.to_dict("records"):
+            dev = r["device"]
+            f, c, rc = rows["forward"].get(dev), rows["capacitance"].get(dev), rows["recovery"].get(dev)
+            g = readings.get(dev)
+            rd = None if g is None else (
+                g["current_A"].to_numpy(float), g["voltage_V"].to_numpy(float),
+                g["used"].astype(bool).to_numpy() if "used" in g else np.ones(len(g), bool),
+                g["temperature_C"].to_numpy(float) + 273.15 if "temperature_C" in g
+                else np.full(len(g), np.nan))
+            gc = cv.get(dev)
+            cp = None if gc is None else (gc["reverse_voltage_V"].to_numpy(float),
+                                          gc["capacitance_F"].to_numpy(float),
+                                          gc["used"].astype(bool).to_numpy() if "used" in gc
+                                          else np.ones(len(gc), bool))
+            members.append(plots.Member(dev, f, rd, c, cp, rc))
+            member_rows.append([
+                f'<span class="id">{e(dev)}</span>', e(position_text(r.get("position"))),
+                f"<code>{e(names.get(dev, ''))}</code>",
+                e(_num(f and f.get("is_A"), "A")), e(_num(f and f.get("n"))),
+                e(_num(f and f.get("rs_ohm"), "\u03a9")), e(_num(c and c.get("cj0_F"), "F")),
+                e(_num(rc and rc.get("trr_s"), "s")), e(_notes(dev, rows))])
+        fig = plots.set_figure(members, currents, p.temperature, f"fig-set-{s}",
+                               f"set {s}: forward, C-V and recovery overlays")
+        first = block.to_dict("records")[0]
+        parts.append(
+            f'<section class="set" id="set-{e(s)}"><h3>Set {e(s)}</h3>'
+            + _table(["device", "position", "model", "IS", "N", "RS", "CJO", "trr", "notes"],
+                     member_rows, {1, 3, 4, 5, 6, 7})
+            + _criteria_table(inp, first)
+            + (f"<figure>{fig}</figure>" if fig else "") + "</section>")
+    rest = set_ids[MAX_DRAWN_SETS:]
+    if rest:
+        dims = _dim_columns(inp)
+        trows = []
+        for s, block in sets[sets["set"].isin(set(rest))].groupby("set", sort=True):
+            first = block.iloc[0]
+            worst = []
+            for d, sp, _mg, _pc in dims:
+                v = first.get(sp) if sp else None
+                tol = d.tolerance * (100 if d.relative else 1)
+                if _isnum(v) and tol > 0:
+                    worst.append(float(v) / tol)
+            members = ", ".join(f'<span class="id">{e(dv)}</span> ({e(position_text(ps))})'
+                                for dv, ps in zip(block["device"], block["position"]))
+            trows.append([f'<span id="set-{e(s)}">{e(s)}</span>', members,
+                          f"{max(worst) * 100:.0f} %" if worst else "\u2013"])
+        parts.append(f"<h3>Sets {e(rest[0])}\u2013{e(rest[-1])}</h3>"
+                     + _table(["set", "members (position)", "largest spread / tolerance"],
+                              trows, {2}, "more-sets"))
+    parts.append("</section>")
+    return "\n".join(parts)
+
+
+def _unmatched_section(inp: ReportInputs) -> str:
+    un = inp.unmatched
+    rows = [[f'<span class="id">{e(r["device"])}</span>', e(position_text(r.get("position"))),
+             e(STAGES.get(str(r.get("stage")), "\u2013")), e(r.get("reason"))]
+            for r in un.to_dict("records")]
+    return ('<section id="unmatched"><h2>Unmatched parts</h2>'
+            f"<p>{len(un)} part(s) not placed in any set, with every reason.</p>"
+            + _table(["device", "position", "stage", "reason"], rows, {1}, "unmatched-parts")
+            + "</section>")
+
+
+def _models_section(inp: ReportInputs, lib: str) -> str:
+    first = lib.split("* ---- set", 2)
+    example = ("* ---- set" + first[1]).strip() if len(first) > 1 else ""
+    return ('<section id="models"><h2>SPICE models</h2>'
+            "<p><code>models.lib</code> holds a diode <code>.model</code> card for every placed "
+            "part, grouped by set: IS, N, RS, CJO, VJ, M, TT and BV/IBV where they were measured, "
+            "EG and XTI as the fit assumed them, and TNOM, the temperature the parameters hold "
+            "at. What was not measured is named in a comment and left to the simulator's "
+            "defaults. The first set's cards:</p>"
+            + (f"<pre>{e(example)}</pre>" if example else "<p>No part was placed.</p>")
+            + "</section>")
+
+
+def _flatten(prefix: str, value, out: list):
+    if isinstance(value, dict):
+        for k in sorted(value):
+            _flatten(f"{prefix}.{k}" if prefix else str(k), value[k], out)
+    else:
+        out.append((prefix, json.dumps(value, ensure_ascii=False) if not isinstance(value, str)
+                    else value))
+
+
+REEL_FIRST = ("reel", "part", "material", "reference_temperature_C", "ambient_temperature_C")
+
+
+def _provenance_section(inp: ReportInputs, version: str) -> str:
+    reel_rows: list = []
+    _flatten("", inp.reel, reel_rows)
+    rank = {k: i for i, k in enumerate(REEL_FIRST)}
+    reel_rows.sort(key=lambda kv: (rank.get(kv[0], len(rank)), kv[0]))
+    s = inp.summary
+    match_rows = [[e(k), e(json.dumps(s[k]) if not isinstance(s[k], str) else s[k])]
+                  for k in ("application", "goal", "method", "optimal", "upper_bound", "note")
+                  if k in s]
+    guard, used = s.get("guard_band", {}) or {}, s.get("tolerance_used", {}) or {}
+    crit_rows = []
+    for d in inp.profile.dimensions:
+        scale = 100 if d.relative else 1
+        g = guard.get(d.name)
+        crit_rows.append([e(d.describe()), e(_dim_value(d.tolerance * scale, d, d.relative)),
+                          e(_dim_value(g, d, False)) if _isnum(g) else "\u2013",
+                          e(_dim_value(used[d.name] * scale, d, d.relative))
+                          if _isnum(used.get(d.name)) else "\u2013", e(d.weight)])
+    files = [[f"<code>{e(f.label)}</code>", e(f.size), f"<code>{e(f.sha256)}</code>"]
+             for f in inp.files]
+    return ('<section id="provenance"><h2>Provenance</h2>'
+            f"<p>Written by kinset {e(version)} from the files below; the newest of them was "
+            f"last changed {e(inp.newest_input)} (UTC). The same files give the same page, "
+            "byte for byte.</p>"
+            "<h3>Reel</h3>"
+            + _table(["setting", "value"], [[f"<code>{e(k)}</code>", e(v)] for k, v in reel_rows])
+            + "<h3>Matching</h3>" + _table(["", "value"], match_rows)
+            + _table(["criterion", "tolerance", "guard band", "tolerance used", "weight"],
+                     crit_rows, {1, 2, 3, 4})
+            + f"<h3>Application profile, as used</h3><p><code>{e(inp.profile_label)}</code></p>"
+            + f"<pre>{e(inp.profile_text)}</pre>"
+            + "<h3>Input files</h3>"
+            + _table(["file", "bytes", "SHA-256"], files, {1}, "inputs")
+            + "</section>")
+
+
+CAUTIONS = """<section id="cautions" class="cautions"><h2>Cautions</h2><ul>
+<li><b>High reverse voltage.</b> Leakage and breakdown tests take small parts to tens or hundreds
+of volts: use a current-limited source, guarded fixtures and interlocks, and discharge the fixture
+before touching it.</li>
+<li><b>Hot parts.</b> Forward sweeps to tens of milliamps and breakdown tests heat small glass and
+surface-mount packages; parts and fixtures can burn skin, and heat shifts what you measure.</li>
+<li><b>Electrostatic discharge.</b> Small-signal and RF Schottky parts are damaged by discharges
+well below what a person feels, and a damaged part can still pass a forward test. Pull the parts
+on a grounded mat with a wrist strap, and keep each set in conductive packaging.</li>
+</ul><p>These notes do not replace your site's safety rules: follow the local electrical codes
+and your organisation's procedures, and leave high-voltage work to people qualified for it.</p>
+</section>"""
+
+
+def render_page(inp: ReportInputs, names: dict[str, str], picks: pd.DataFrame, lib: str,
+                version: str) -> str:
+    """The whole page as text."""
+    p = inp.profile
+    title = f"{p.settings.get('name') or p.name} \u2013 reel {inp.reel_id} \u2013 kinset report"
+    body = "\n".join([
+        _header(inp, picks),
+        _pick_section(picks, names),
+        _yield_section(inp),
+        _distributions_section(inp),
+        _sets_section(inp, names),
+        _unmatched_section(inp),
+        _models_section(inp, lib),
+        _provenance_section(inp, version),
+        CAUTIONS,
+        f'<footer><p class="muted">kinset {e(version)} \u00b7 application {e(p.name)} \u00b7 '
+        f"reel {e(inp.reel_id)}</p></footer>",
+    ])
+    return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
+            f'<meta http-equiv="Content-Security-Policy" content="{CSP}">\n'
+            '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
+            f"<title>{e(title)}</title>\n<style>{CSS}</style>\n</head>\n<body>\n{body}\n"
+            "</body>\n</html>\n")

@@ -1,0 +1,144 @@
+"""The matcher end to end on fitted tables: optimum, validity, reasons, accounting."""
+
+import itertools
+
+import networkx as nx
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.optimize import Bounds, LinearConstraint, milp
+from scipy.sparse import lil_matrix
+
+from kinset.fitting.forward import ForwardSettings, fit_forward
+from kinset.matching.profile import load_profile
+from kinset.matching.run import match, partners
+from kinset.physics.forward import voltage_from_current
+
+T25 = 298.15
+CURRENTS = [1e-5, 1e-4, 1e-3, 1e-2]
+
+
+def tight_batch(n=60, seed=3):
+    """Simulated parts of one tight batch, swept 10 µA–10 mA (invented, demo-like data)."""
+    rng = np.random.default_rng(seed)
+    z = rng.normal(size=n)
+    i_s = 2.7e-9 * np.exp(0.05 * z + 0.02 * rng.normal(size=n))
+    n_ = 1.85 + 0.004 * z + 0.002 * rng.normal(size=n)
+    rs = rng.uniform(0.4, 0.8, n)
+    sweep = np.logspace(-5, -2, 16)
+    rows = []
+    for k in range(n):
+        v = voltage_from_current(sweep, i_s[k], n_[k], rs[k], T25)
+        rows.append(pd.DataFrame({"device": f"T{k:03d}", "voltage": v, "current": sweep,
+                                  "temperature": T25, "position": k + 1, "source": "m", "line": 0}))
+    table, readings = fit_forward(pd.concat(rows), ForwardSettings(T25, T25, 1.11, 3.0, 0.0))
+    return {"forward": table, "forward_readings": readings}
+
+
+def profile(tmp_path, size, tol, guard="none", extra=""):
+    p = tmp_path / f"p{size}.yaml"
+    p.write_text(f"set_size: {size}\nguard_band: {guard}\nmatch:\n"
+                 f"  - {{quantity: forward_voltage, at_current_A: {CURRENTS}, tolerance_V: {tol}}}\n"
+                 + extra)
+    return load_profile(str(p))
+
+
+def recheck_voltages(tables, members):
+    t = tables["forward"].set_index("device").loc[members]
+    return np.array([[voltage_from_current(i, r.is_A, r.n, r.rs_ohm, T25) for i in CURRENTS]
+                     for r in t.itertuples()])
+
+
+def milp_optimum(volts: np.ndarray, size: int, tol: float) -> int:
+    """Independent reference: the set-packing optimum by HiGHS (scipy.optimize.milp)
+    over every valid set (a k-clique of the pairwise-compatibility graph)."""
+    g = nx.Graph()
+    g.add_nodes_from(range(len(volts)))
+    for a, b in itertools.combinations(range(len(volts)), 2):
+        if np.max(np.abs(volts[a] - volts[b])) <= tol:
+            g.add_edge(a, b)
+    # every valid set is a k-subset of some maximal clique (Bron–Kerbosch, networkx)
+    cands = sorted({tuple(sorted(sub)) for c in nx.find_cliques(g) if len(c) >= size
+                    for sub in itertools.combinations(c, size)})
+    if not cands:
+        return 0
+    a = lil_matrix((len(volts), len(cands)))
+    for j, c in enumerate(cands):
+        for m in c:
+            a[m, j] = 1
+    res = milp(-np.ones(len(cands)), integrality=np.ones(len(cands)), bounds=Bounds(0, 1),
+               constraints=LinearConstraint(a.tocsr(), 0, 1))
+    return int(round(-res.fun))
+
+
+@pytest.mark.parametrize("size,tol", [(2, 1.5e-3), (4, 2.5e-3)])
+def test_tight_batch_reaches_the_milp_optimum_and_every_set_is_valid(tmp_path, size, tol):
+    tables = tight_batch()
+    prof = profile(tmp_path, size, tol)
+    devices = sorted(tables["forward"]["device"])
+    result = match(tables, devices, prof, accuracy={})
+    volts = recheck_voltages(tables, devices)
+    assert result.summary["sets"] == milp_optimum(volts, size, tol)
+    assert result.summary["sets"] > 0
+    for _, members in result.sets.groupby("set")["device"]:
+        assert len(members) == size
+        v = recheck_voltages(tables, list(members))
+        assert (v.max(axis=0) - v.min(axis=0) <= tol * (1 + 1e-9)).all()
+    # Accounting: every part in exactly one of the two tables.
+    placed = list(result.sets["device"])
+    assert len(placed) == len(set(placed))
+    assert set(placed).isdisjoint(result.unmatched["device"])
+    assert set(placed) | set(result.unmatched["device"]) == set(devices)
+
+
+def test_guard_band_shrinks_the_tolerance(tmp_path):
+    tables = tight_batch()
+    devices = sorted(tables["forward"]["device"])
+    acc = {"voltage": {"gain": 1e-4, "offset_V": 1e-4}}
+    guarded = match(tables, devices, profile(tmp_path, 2, 1.5e-3, "accuracy"), acc)
+    plain = match(tables, devices, profile(tmp_path, 2, 1.5e-3, "none"), acc)
+    g = guarded.summary["guard_band"]["forward_voltage_at_1mA"]
+    assert 2.5e-4 < g < 2.8e-4          # ±(0.01 % + 100 µV) near 0.6–0.7 V: see test_profiles
+    assert guarded.summary["sets"] <= plain.summary["sets"]
+    for _, members in guarded.sets.groupby("set")["device"]:
+        v = recheck_voltages(tables, list(members))
+        assert (v.max(axis=0) - v.min(axis=0) <= 1.5e-3 - 2.5e-4).all()
+
+
+def test_reasons_for_missing_data_single_points_and_screens(tmp_path):
+    tables = tight_batch(12)
+    single = pd.DataFrame({"device": ["S1"], "voltage": [0.6], "current": [0.63e-3],
+                           "temperature": [T25], "position": [99], "source": ["m"], "line": [2]})
+    t, r = fit_forward(single, ForwardSettings(T25, T25, 1.11, 3.0, 0.0))
+    tables["forward"] = pd.concat([tables["forward"], t], ignore_index=True)
+    tables["forward_readings"] = pd.concat([tables["forward_readings"], r], ignore_index=True)
+    devices = sorted(tables["forward"]["device"])
+    prof = profile(tmp_path, 2, 5e-3, extra="screen:\n  - {quantity: reverse_current, "
+                                             "at_reverse_voltage_V: 20, max_A: 5.0e-8}\n")
+    result = match(tables, devices, prof, accuracy={})
+    reasons = result.unmatched.set_index("device")["reason"]
+    assert "cannot see crossing curves" in reasons["S1"]
+    assert all("no leakage data" in reasons[d] for d in devices)
+    assert result.summary["sets"] == 0
+
+
+def test_same_input_same_sets(tmp_path):
+    tables = tight_batch()
+    devices = sorted(tables["forward"]["device"])
+    prof = profile(tmp_path, 4, 2.5e-3)
+    a = match(tables, devices, prof, accuracy={})
+    b = match(tables, devices, prof, accuracy={})
+    pd.testing.assert_frame_equal(a.sets, b.sets)
+
+
+def test_partners_rank_the_closest_part_first(tmp_path):
+    tables = tight_batch()
+    devices = sorted(tables["forward"]["device"])
+    prof = profile(tmp_path, 2, 1.5e-3)
+    table = partners(tables, devices, prof, "T000", accuracy={}, top=5)
+    volts = recheck_voltages(tables, devices)
+    me = volts[0]
+    dist = np.abs(volts[1:] - me).sum(axis=1) / 1.5e-3
+    assert table["device"].iloc[0] == devices[1 + int(np.argmin(dist))]
+    margins = table[[c for c in table.columns if "_margin" in c]].to_numpy()
+    assert (table["within"].to_numpy() == (margins >= 0).all(axis=1)).all()
