@@ -142,3 +142,26 @@ def test_partners_rank_the_closest_part_first(tmp_path):
     assert table["device"].iloc[0] == devices[1 + int(np.argmin(dist))]
     margins = table[[c for c in table.columns if "_margin" in c]].to_numpy()
     assert (table["within"].to_numpy() == (margins >= 0).all(axis=1)).all()
+
+
+def test_dense_reel_sets_are_valid_and_within_proven_limits():
+    # A dense group (far too many valid quads to list): whatever method is used, the sets
+    # must be valid and disjoint, and neither their count nor the stated bound may claim
+    # more than is possible: disjoint quads hold two disjoint compatible pairs each, so
+    # there are at most (maximum matching) / 2 of them (matching by networkx's blossom).
+    from kinset.matching.sets import form_sets, is_valid
+    rng = np.random.default_rng(11)
+    z = rng.normal(size=(120, 3)) * 0.8
+    res = form_sets(z, np.ones(3), 4)
+    for s in res.sets:
+        assert is_valid(z, s) and len(s) == 4
+    flat = np.concatenate(res.sets)
+    assert len(flat) == len(set(flat))
+    g = nx.Graph()
+    g.add_nodes_from(range(len(z)))
+    g.add_edges_from((a, b) for a, b in itertools.combinations(range(len(z)), 2)
+                     if np.max(np.abs(z[a] - z[b])) <= 1)
+    limit = len(nx.max_weight_matching(g, maxcardinality=True)) // 2
+    assert len(res.sets) <= res.upper_bound
+    assert len(res.sets) <= limit
+    assert len(res.sets) >= 0.8 * min(res.upper_bound, limit)   # near the bound, not a token effort
