@@ -4,6 +4,11 @@ A file may hold one device or many, in any column order; lines whose first
 non-blank character is ``#`` are comments; units live in the column names
 (``kinset.io.units``). Every problem raises :class:`kinset.errors.InputError`
 naming the file and the line or column.
+
+Fields are separated by commas. A file whose header holds no comma but semicolons
+(or tabs) is read with that separator, as spreadsheets in decimal-comma locales
+export; its numbers may then use decimal commas, as long as no number in the file
+uses a decimal point (which would leave open what a comma means).
 """
 
 from __future__ import annotations
@@ -20,6 +25,13 @@ from kinset.errors import InputError
 from kinset.io.units import resolve_columns, split_column
 
 _COMMENT = re.compile(rb"^[ \t]*#", re.MULTILINE)
+# Longest device id kept: ids name parts on a tape, in reports and SPICE model names;
+# anything longer is a pasted cell or a broken export, not an id.
+MAX_ID_LENGTH = 64
+# Control characters (C0, DEL, C1): they never belong in an id or a file name and would
+# garble reports and terminals.
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
+_UTF16 = (b"\xff\xfe", b"\xfe\xff")
 
 
 @dataclass
@@ -50,8 +62,15 @@ def _body(path: str) -> tuple[str | bytes, np.ndarray]:
         raw = Path(path).read_bytes()
     except OSError as exc:
         raise InputError(f"cannot read file: {exc.strerror}", path) from None
+    if raw.startswith(_UTF16):
+        raise InputError("file is UTF-16 text (a spreadsheet's 'Unicode text' export); "
+                         "save it as CSV in UTF-8", path, 1)
     if raw.startswith(b"\xef\xbb\xbf"):
         raw = raw[3:]
+    if b"\r" in raw and raw.count(b"\r") != raw.count(b"\r\n"):
+        # Lone CRs (old line ends, or mixed): line breaks, as an editor shows them.
+        # pandas reads CR LF itself, so the usual Windows export is not copied.
+        raw = raw.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
     text = _decode(raw, path)
     data = np.frombuffer(raw, dtype=np.uint8)
     newlines = np.flatnonzero(data == 10)
@@ -95,28 +114,51 @@ def _decode(raw: bytes, path: str) -> str:
                          f"(save the file as UTF-8)", path, line) from None
 
 
-def _parse(body: str, keep: list[int], path: str, dtype, numeric=()) -> pd.DataFrame:
+def _quote_line(text: str, keep) -> int | None:
+    """File line of the first kept line with an unclosed double quote."""
+    for row, line in enumerate(text.split("\n")):
+        if line.count('"') % 2:
+            return int(keep[row]) + 1 if row < len(keep) else None
+    return None
+
+
+def _text(body: str | bytes) -> str:
+    return body.decode("utf-8") if isinstance(body, bytes) else body
+
+
+def _parse(body: str | bytes, keep, path: str, dtype, numeric=(), sep: str = ",",
+           decimal: str = ".") -> pd.DataFrame:
     """pandas' C parser on the kept lines; only numeric columns read '' as missing."""
+    hint = " (decimal commas? separate fields with ';' or write decimal points)" \
+        if sep == "," else ""
     try:
         source = io.BytesIO(body) if isinstance(body, bytes) else io.StringIO(body)
         table = pd.read_csv(source, dtype=dtype, keep_default_na=False,
-                            na_values={c: [""] for c in numeric},
+                            na_values={c: [""] for c in numeric}, sep=sep, decimal=decimal,
                             skipinitialspace=True, skip_blank_lines=False)
     except pd.errors.ParserError as exc:
+        if "EOF inside string" in str(exc):
+            raise InputError("a double quote is never closed", path,
+                             _quote_line(_text(body), keep)) from None
         m = re.search(r"line (\d+)", str(exc))
         line = int(keep[int(m.group(1)) - 1]) + 1 if m and int(m.group(1)) - 1 < len(keep) else None
-        raise InputError(f"row does not fit the header ({exc})", path, line) from None
+        raise InputError(f"row does not fit the header ({exc}){hint}", path, line) from None
     except pd.errors.EmptyDataError:
         raise InputError("file holds no header and no data", path) from None
     if not isinstance(table.index, pd.RangeIndex):
         # pandas took the first column as an index: data rows have more fields than the header.
-        text_body = body.decode("utf-8") if isinstance(body, bytes) else body
-        header_fields = _first_line(text_body).count(",")
+        text_body = _text(body)
+        header_fields = _first_line(text_body).count(sep)
         for row, text in enumerate(text_body.split("\n")[1:]):
-            if text.count(",") > header_fields:
+            if text.count(sep) > header_fields:
                 raise InputError(f"row has more fields than the header "
-                                 f"({text.count(',') + 1} > {header_fields + 1})", path,
+                                 f"({text.count(sep) + 1} > {header_fields + 1}){hint}", path,
                                  int(keep[row + 1]) + 1)
+    if len(table) != len(keep) - 1:
+        # A quoted cell ran over a line break: the rows no longer match the file's lines.
+        line = _quote_line(_text(body), keep)
+        raise InputError("a quoted cell runs over a line break (every row must fit on one "
+                         "line)", path, line)
     return table
 
 
@@ -131,6 +173,28 @@ def _check_header(columns, path: str, header_line: int) -> list[str]:
     return cols
 
 
+def _separator(header: str) -> str:
+    """The field separator, from the header line: ',' unless it holds none but ';' or tabs."""
+    if "," in header:
+        return ","
+    for sep in (";", "\t"):
+        if sep in header:
+            return sep
+    return ","
+
+
+def _read_header(body, keep, path: str) -> tuple[list[str], str]:
+    first = _first_line(body)
+    sep = _separator(first)
+    try:
+        header = pd.read_csv(io.StringIO(first), nrows=0, sep=sep, skipinitialspace=True)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+        raise InputError(f"header line does not parse ({exc})", path, int(keep[0]) + 1) from None
+    if len(keep) < 2:
+        raise InputError("file holds a header but no data rows", path, int(keep[0]) + 1)
+    return _check_header(header.columns, path, int(keep[0]) + 1), sep
+
+
 def read_text_table(path: str | Path) -> tuple[pd.DataFrame, np.ndarray]:
     """Read a CSV file as text cells, skipping comment and blank lines.
 
@@ -142,12 +206,13 @@ def read_text_table(path: str | Path) -> tuple[pd.DataFrame, np.ndarray]:
     """
     path = str(path)
     body, keep = _body(path)
-    table = _parse(body, keep, path, str)
-    table.columns = _check_header(table.columns, path, int(keep[0]) + 1)
+    cols, sep = _read_header(body, keep, path)
+    table = _parse(body, keep, path, str, sep=sep)
+    table.columns = cols
     return table, keep[1:].astype(np.int64) + 1
 
 
-def _fast_numeric(body, keep, path, cols, numeric, required, found):
+def _fast_numeric(body, keep, path, cols, numeric, required, found, text):
     """Parse numeric columns straight to float; None when any cell needs a closer look."""
     dtype = {c: (np.float64 if c in numeric else "category") for c in cols}
     try:
@@ -157,6 +222,13 @@ def _fast_numeric(body, keep, path, cols, numeric, required, found):
             raise
         return None
     table.columns = cols
+    for c in text:
+        # pandas turns categories that all look like numbers into numbers ('001' and
+        # '1.0' would both become 1.0, one part): such ids are read again as text.
+        column = table[c] if c in cols else None
+        if isinstance(getattr(column, "dtype", None), pd.CategoricalDtype) and \
+                not pd.api.types.is_string_dtype(column.cat.categories):
+            return None
     required_cols = {found[q][0] for q in required}
     for c in numeric:
         v = table[c].to_numpy()
@@ -168,6 +240,60 @@ def _fast_numeric(body, keep, path, cols, numeric, required, found):
         elif np.isnan(v).any():
             return None  # empty optional cells are fine but "nan" text is not: look closer
     return table
+
+
+def _decimal_commas(cells: pd.DataFrame, numeric: list[str], lines, path: str) -> None:
+    """Turn decimal commas into points in a ';' or tab separated file, when unambiguous.
+
+    Unambiguous means no numeric cell of the file holds a point: a file that mixes
+    ``0,65`` and ``0.65``, or writes ``1.000,5``, could mean thousands separators.
+    """
+    comma = dot = None
+    for c in numeric:
+        col = cells[c].astype(str)
+        has_comma = col.str.contains(",", regex=False).to_numpy()
+        has_dot = col.str.contains(".", regex=False).to_numpy()
+        both = has_comma & has_dot
+        if both.any():
+            i = int(np.flatnonzero(both)[0])
+            raise InputError(f"'{col.iloc[i]}' holds both ',' and '.': a thousands separator "
+                             f"cannot be told from a decimal mark; export numbers without "
+                             f"thousands separators", path, int(lines[i]), c)
+        if comma is None and has_comma.any():
+            comma = (c, int(np.flatnonzero(has_comma)[0]))
+        if dot is None and has_dot.any():
+            dot = (c, int(np.flatnonzero(has_dot)[0]))
+    if comma is None:
+        return
+    if dot is not None:
+        raise InputError(f"numbers use decimal commas (line {int(lines[comma[1]])}, column "
+                         f"'{comma[0]}') and decimal points (here) in the same file: which a "
+                         f"comma means is ambiguous; use one decimal mark throughout", path,
+                         int(lines[dot[1]]), dot[0])
+    for c in numeric:
+        cells[c] = cells[c].astype(str).str.replace(",", ".", regex=False)
+
+
+def _check_text(values: np.ndarray, distinct, name: str, lines, path: str) -> None:
+    """Refuse control characters in any text cell, and over-long device ids.
+
+    ``distinct`` holds the column's distinct values, so a long file is checked once
+    per id rather than once per row.
+    """
+    joined = "".join(distinct)
+    too_long = name == "device" and max(map(len, distinct), default=0) > MAX_ID_LENGTH
+    if not (too_long or _CONTROL.search(joined)):
+        return
+    bad = next(u for u in distinct if _CONTROL.search(u) or
+               (name == "device" and len(u) > MAX_ID_LENGTH))
+    i = int(np.flatnonzero(values == bad)[0])
+    m = _CONTROL.search(bad)
+    if m:
+        raise InputError(f"'{name}' holds the control character U+{ord(m.group()):04X}; "
+                         f"ids and names must be printable text", path, int(lines[i]), name)
+    raise InputError(f"device id is {len(bad)} characters long, more than the "
+                     f"{MAX_ID_LENGTH} kinset accepts ('{bad[:20]}...')", path,
+                     int(lines[i]), name)
 
 
 def to_number(cells: pd.Series, lines: np.ndarray, path: str, column: str,
@@ -184,15 +310,17 @@ def to_number(cells: pd.Series, lines: np.ndarray, path: str, column: str,
     bad |= stripped.str.lower().isin(["nan", "-nan", "+nan"]).to_numpy()
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise InputError(f"'{cells.iloc[i]}' is not a finite number", path, int(lines[i]), column)
+        cell = str(cells.iloc[i])
+        hint = " (a decimal comma? write a decimal point)" if "," in cell else ""
+        raise InputError(f"'{cell}' is not a finite number{hint}", path, int(lines[i]), column)
     if empty.any() and not allow_empty:
         i = int(np.flatnonzero(empty)[0])
         raise InputError("cell is empty (a truncated row?)", path, int(lines[i]), column)
     return values
 
 
-def _stripped_text(column: pd.Series) -> np.ndarray:
-    """Text cells without surrounding blanks, as an object array.
+def _stripped_text(column: pd.Series) -> tuple[np.ndarray, list[str]]:
+    """Text cells without surrounding blanks, as an object array, and the distinct ones.
 
     A categorical column (the fast path) is stripped once per distinct value.
     """
@@ -200,8 +328,9 @@ def _stripped_text(column: pd.Series) -> np.ndarray:
         cats = column.cat.categories.to_numpy(dtype=object)
         stripped = np.array([str(c).strip() for c in cats] + [""], dtype=object)
         codes = column.cat.codes.to_numpy()
-        return stripped[np.where(codes >= 0, codes, len(cats))]
-    return column.astype(str).str.strip().to_numpy(dtype=object)
+        return stripped[np.where(codes >= 0, codes, len(cats))], list(stripped)
+    values = column.astype(str).str.strip().to_numpy(dtype=object)
+    return values, list(pd.unique(values))
 
 
 def _choose(specs: list[Spec], cols: list[str]) -> Spec:
@@ -226,8 +355,7 @@ def read_table(path: str | Path, spec: Spec | list[Spec]) -> pd.DataFrame:
     path = str(path)
     body, keep = _body(path)
     lines = keep[1:].astype(np.int64) + 1
-    header = pd.read_csv(io.StringIO(_first_line(body)), nrows=0, skipinitialspace=True)
-    cols = _check_header(header.columns, path, int(keep[0]) + 1)
+    cols, sep = _read_header(body, keep, path)
     if isinstance(spec, list):
         spec = _choose(spec, cols)
     for name in spec.required_text:
@@ -237,21 +365,26 @@ def read_table(path: str | Path, spec: Spec | list[Spec]) -> pd.DataFrame:
     required = set(spec.required)
     found = resolve_columns(cols, spec.quantities, path, required, int(keep[0]) + 1)
     numeric = [col for col, _ in found.values()] + [c for c in spec.integer if c in cols]
-    fast = _fast_numeric(body, keep, path, cols, numeric, required, found)
+    fast = None
+    if sep == ",":   # the fast path: commas and decimal points, as most exports write
+        fast = _fast_numeric(body, keep, path, cols, numeric, required, found, spec.text)
     if fast is not None:
         cells = fast
-    else:  # something is off: reread as text to name the bad cell
-        cells = _parse(body, keep, path, str)
+    else:  # something is off, or another separator: reread as text to name the bad cell
+        cells = _parse(body, keep, path, str, sep=sep)
         cells.columns = cols
+        if sep != ",":
+            _decimal_commas(cells, numeric, lines, path)
     out: dict[str, object] = {}
     for name in spec.text:
         if name in cols:
-            s = _stripped_text(cells[name])
+            s, distinct = _stripped_text(cells[name])
             if name in spec.required_text:
                 empty = s == ""
                 if empty.any():
                     i = int(np.flatnonzero(empty)[0])
                     raise InputError(f"'{name}' is empty", path, int(lines[i]), name)
+            _check_text(s, distinct, name, lines, path)
             out[name] = s
     for name in spec.integer:
         if name in cols:
