@@ -17,6 +17,7 @@ RS kept non-negative by projection.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -375,7 +376,15 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
             st = "rejected"
             note.insert(0, "the fit did not converge: readings do not follow a diode law")
         else:
-            if rms[d] > POOR_FIT_RMS_V:
+            if rms[d] > POOR_FIT_RMS_V and n_files[d] > 1:
+                # Files that each follow a diode law but not together: most often one id
+                # written on two parts. Their mixture must not be matched as one part.
+                st = "rejected"
+                files = ", ".join(sorted({Path(f).name for f in src[dev_codes == d]}))
+                note.insert(0, f"readings in {n_files[d]} files ({files}) disagree: the "
+                            f"fit to all of them is off by {si(rms[d], 'V')} rms; one id on "
+                            f"two parts? Check the files")
+            elif rms[d] > POOR_FIT_RMS_V:
                 st = "warning"
                 note.append(f"poor fit: rms residual {si(rms[d], 'V')} (noisy readings or "
                             f"not a single junction)")

@@ -47,6 +47,7 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -73,6 +74,7 @@ OUTLIER_RATIO = 3.0         # ... when it also leaks at least 3× the reel media
 OUTLIER_MIN_DEVICES = 8     # fewer devices at a voltage give no meaningful reel statistics
 MAD_TO_SIGMA = 1.4826       # Hampel [2]
 MAX_PLAUSIBLE_A = 1.0       # [A] a reverse "leakage" reading above this is not leakage
+FILES_DISAGREE = 3.0         # readings of one id in two files this far apart at one voltage
 PLATEAU_REL = 2e-3          # top readings this close to the largest current sat at a limit
 
 
@@ -350,6 +352,23 @@ def fit_leakage(points: pd.DataFrame, settings: LeakageSettings) -> pd.DataFrame
     # Repeated voltages (several sweeps, files or temperatures): geometric mean.
     seg = np.cumsum(new_v) - 1
     n_seg = int(seg[-1]) + 1 if m_pts else 0
+    # ... unless readings of one id from different files disagree at the same voltage
+    # (after the temperature normalisation): then the id most likely names two parts.
+    src_codes, src_names = pd.factorize(points["source"].astype(str).to_numpy())
+    src = src_codes[order][keep]
+    ln_norm = np.log(normal)
+    seg_hi = np.full(n_seg, -np.inf)
+    seg_lo = np.full(n_seg, np.inf)
+    np.maximum.at(seg_hi, seg, ln_norm)
+    np.minimum.at(seg_lo, seg, ln_norm)
+    pairs = np.unique(np.stack([dc, src]), axis=1) if m_pts else np.zeros((2, 0), dtype=int)
+    n_files = np.bincount(pairs[0], minlength=n_dev)
+    spread = (seg_hi - seg_lo)[seg] if m_pts else np.zeros(0)
+    worst = _group_max(dc, spread, n_dev, empty=0.0)
+    worst_v = np.full(n_dev, np.nan)
+    top = np.flatnonzero(spread == worst[dc])
+    worst_v[dc[top[::-1]]] = v[top[::-1]]
+    conflict = (n_files > 1) & (worst > np.log(FILES_DISAGREE))
     lnn = np.bincount(seg, np.log(normal), n_seg) / np.bincount(seg, minlength=n_seg)
     first_of = np.flatnonzero(new_v)
     dm, vm = dc[first_of], v[first_of]
@@ -429,6 +448,13 @@ def fit_leakage(points: pd.DataFrame, settings: LeakageSettings) -> pd.DataFrame
             status.append("rejected")
             notes.append(f"no usable reading: all {total[d]} have zero or negative voltage "
                          f"or current")
+            continue
+        if conflict[d]:
+            files = ", ".join(sorted({Path(src_names[k]).name for k in pairs[1][pairs[0] == d]}))
+            status.append("rejected")
+            notes.append(f"readings in {n_files[d]} files ({files}) disagree: "
+                         f"{np.exp(worst[d]):.3g}× apart at {worst_v[d]:g} V; one id on two "
+                         f"parts? Check the files")
             continue
         if flip_v[d] or flip_i[d]:
             note.append("negative (signed) readings taken as reverse magnitudes")

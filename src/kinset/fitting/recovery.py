@@ -80,6 +80,7 @@ HYSTERESIS_MIN = 0.02        # of Irrm
 REVERSE_SIGMAS = 5.0         # a reverse excursion smaller than 5 σ is noise
 REVERSE_MIN = 0.05           # ... or than 5 % of IF
 MIN_SAMPLES = 8
+CAPTURES_DISAGREE = 0.25     # captures of one id in several files whose trr spread exceeds this
 MIN_FORWARD_SAMPLES = 3
 FORWARD_PLATEAU = 0.8        # forward samples: above 80 % of the largest before the switch
 CONDITION_MISMATCH = 0.1     # warn when IF or IR differs from the test condition by > 10 %
@@ -531,6 +532,14 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
             chosen = good
             row["status"] = "warning" if (status_w[good] == "warning").any() else "ok"
             note = []
+            trr = res["trr_s"][good]
+            files = sorted({Path(wave_src[w]).name for w in good})
+            if len(files) > 1 and np.ptp(trr) > CAPTURES_DISAGREE * np.mean(trr):
+                # Captures of one id in several files that do not agree: one id on two parts?
+                row["status"] = "rejected"
+                note.append(f"captures in {len(files)} files ({', '.join(files)}) disagree: trr "
+                            f"{si(np.min(trr), 's')} to {si(np.max(trr), 's')}; one id on two "
+                            f"parts? Check the files")
             for w in good:
                 note += [x for x in wave_notes[w] if x not in note]
             if len(ws) > 1:
