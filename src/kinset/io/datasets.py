@@ -11,7 +11,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.errors import InputError
 from kinset.io.tables import Spec, read_table
 
 FORWARD_SWEEP = Spec(
@@ -23,7 +22,7 @@ FORWARD_SUPPLY = Spec(
     quantities={"supply": "voltage", "resistance": "resistance", "voltage": "voltage",
                 "temperature": "temperature"},
     required={"supply", "resistance", "voltage"},
-    text=("device",), integer=("position",),
+    text=("device",), integer=("position",), positive=("resistance",),
 )
 LEAKAGE = Spec(
     quantities={"reverse_voltage": "voltage", "reverse_current": "current",
@@ -62,14 +61,8 @@ def read_forward(path: str | Path) -> pd.DataFrame:
     """
     path = str(path)
     frame = read_table(path, [FORWARD_SWEEP, FORWARD_SUPPLY])
-    if "current" not in frame:
-        r = frame["resistance"].to_numpy()
-        bad = r <= 0
-        if bad.any():
-            i = int(np.flatnonzero(bad)[0])
-            raise InputError("series resistance must be positive", path,
-                             int(frame["line"].iloc[i]), "resistance")
-        frame["current"] = (frame["supply"] - frame["voltage"]) / r
+    if "current" not in frame:   # the reader refused resistances <= 0 (Spec.positive)
+        frame["current"] = (frame["supply"] - frame["voltage"]) / frame["resistance"].to_numpy()
         frame = frame.drop(columns=["supply", "resistance"])
     for col in ("temperature", "position"):
         if col not in frame:

@@ -43,6 +43,7 @@ class Spec:
     text : plain (unit-less) text columns, e.g. ``device``, ``fixture``.
     required_text : the text columns that must be present.
     integer : plain columns holding whole numbers (``position``).
+    positive : quantities whose every reading must be above zero.
     """
 
     quantities: dict[str, str]
@@ -50,6 +51,7 @@ class Spec:
     text: tuple[str, ...] = ("device",)
     required_text: tuple[str, ...] = ("device",)
     integer: tuple[str, ...] = ()
+    positive: tuple[str, ...] = ()
 
 
 def _body(path: str) -> tuple[str | bytes, np.ndarray]:
@@ -398,6 +400,10 @@ def read_table(path: str | Path, spec: Spec | list[Spec]) -> pd.DataFrame:
     for quantity, (col, unit) in found.items():
         optional = quantity not in required
         v = to_number(cells[col], lines, path, col, allow_empty=optional)
+        if quantity in spec.positive and (v <= 0).any():
+            i = int(np.flatnonzero(v <= 0)[0])
+            raise InputError(f"{quantity.replace('_', ' ')} must be positive (got "
+                             f"{v[i]:g})", path, int(lines[i]), col)
         out[quantity] = v * unit.scale + unit.offset
     frame = pd.DataFrame(out)
     frame["source"] = path

@@ -74,6 +74,8 @@ def read_touchstone(path: str | Path) -> Sweep:
     path = str(path)
     if not Path(path).is_file():
         raise InputError("file not found", path)
+    if Path(path).stat().st_size == 0:
+        raise InputError("file is empty", path)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
