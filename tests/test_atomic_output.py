@@ -62,9 +62,10 @@ def test_text_csv_and_npz_round_trip(tmp_path):
 
 
 def test_a_writer_killed_midway_leaves_no_partial_target(tmp_path):
-    """A process killed (SIGKILL) while writing a large table: the target keeps its old
-    contents (here: absent), whatever moment the signal came."""
+    """A process killed (SIGKILL) while writing a large table over an older one: the
+    target keeps its old contents."""
     target = tmp_path / "big.csv"
+    write_text(target, "device,x\nold,1\n")
     code = textwrap.dedent(f"""
         import numpy as np, pandas as pd, sys
         from kinset.io.output import write_csv
@@ -80,7 +81,7 @@ def test_a_writer_killed_midway_leaves_no_partial_target(tmp_path):
     os.kill(proc.pid, signal.SIGKILL)
     proc.wait()
     assert list(tmp_path.glob(".big.csv.*.tmp")), "the writer never started writing"
-    assert not target.exists()
+    assert target.read_text() == "device,x\nold,1\n"
 
 
 # --------------------------------------------------------------------------- the source
