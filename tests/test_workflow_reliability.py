@@ -78,8 +78,10 @@ def outputs(work: Path, intermediates: bool = True) -> dict[str, str]:
     """
     base = work / "results" / "demo-0412"
     skip = {"logs"} | (set() if intermediates else {"parsed"})
+    files = [p for p in sorted(base.rglob("*")) if p.is_file() and not skip & set(p.parts)
+             and not (p.name.startswith(".") and p.name.endswith(".tmp"))]   # a writer's temporary
     return {p.relative_to(base).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
-            for p in sorted(base.rglob("*")) if p.is_file() and not skip & set(p.parts)}
+            for p in files}
 
 
 def expected_files() -> set[str]:
