@@ -48,15 +48,12 @@ def _cmd_devices(args) -> None:
 
 def _cmd_check_reel(args) -> None:
     import json
+    from kinset.io.output import write_text
     from kinset.io.reel import load_reel
     reel = load_reel(args.reel)
     text = json.dumps(reel.settings, indent=2, sort_keys=True) + "\n"
     if args.output:     # the validated settings, for matching and the report
-        target = Path(args.output)
-        target.parent.mkdir(parents=True, exist_ok=True)
-        tmp = target.with_name(target.name + ".tmp")
-        tmp.write_text(text, encoding="utf-8")
-        tmp.replace(target)
+        write_text(args.output, text)
     print(f"{reel.folder / 'reel.yaml'}: valid (reel id {reel.id})", file=sys.stderr)
 
 

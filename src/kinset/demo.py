@@ -51,6 +51,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from kinset.io.output import write_text
 from kinset.io.reel import MATERIAL_DEFAULTS
 from kinset.physics.capacitance import (junction_capacitance, reflection_coefficient,
                                         series_rlc_impedance)
@@ -142,8 +143,7 @@ def _csv(comments: list[str], header: list[str], columns: list[list[str]]) -> st
 
 
 def _write(path: Path, text: str) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_bytes(text.encode("ascii"))
+    write_text(path, text, "ascii")
 
 
 def _chunks(n: int, size: int) -> list[slice]:

@@ -43,6 +43,28 @@ class Extraction:
     extras: dict[str, pd.DataFrame] = field(default_factory=dict)
 
 
+def _reel_relative(reel: Reel, result: Extraction) -> Extraction:
+    """``result`` with every ``source`` column naming its file relative to the reel folder.
+
+    The tables then read ``forward/batch_a.csv`` however the reel folder was given
+    (relative, absolute, another mount point), so the same reel gives the same bytes
+    wherever it lies. A file outside the reel folder keeps the path it was given by.
+    """
+    root = os.path.abspath(reel.folder)
+
+    def label(path: str) -> str:
+        rel = os.path.relpath(os.path.abspath(path), root)
+        outside = rel == os.pardir or rel.startswith(os.pardir + os.sep)
+        return path if outside or not path else Path(rel).as_posix()
+
+    for frame in [result.table, *result.extras.values()]:
+        if "source" in frame.columns and len(frame):
+            names = frame["source"].astype(str)
+            mapping = {p: label(p) for p in names.unique()}
+            frame["source"] = names.map(mapping)
+    return result
+
+
 def forward_settings(reel: Reel) -> ForwardSettings:
     return ForwardSettings(
         reference_temperature=reel.reference_temperature,
@@ -68,7 +90,7 @@ def extract_forward(reel: Reel, files: list[str | Path]) -> Extraction:
     """
     points = read_inputs("forward", _inputs(reel, "forward", files))
     table, readings = fit_forward(points, forward_settings(reel))
-    return Extraction(table, {"readings": readings})
+    return _reel_relative(reel, Extraction(table, {"readings": readings}))
 
 
 def capacitance_settings(reel: Reel):
@@ -148,7 +170,7 @@ def extract_capacitance(reel: Reel, files: list[str | Path]) -> Extraction:
     from kinset.fitting.capacitance import fit_capacitance
     table, points = fit_capacitance(_capacitance_points(reel, list(files)),
                                     capacitance_settings(reel))
-    return Extraction(table, {"points": points})
+    return _reel_relative(reel, Extraction(table, {"points": points}))
 
 
 def leakage_settings(reel: Reel):
@@ -174,7 +196,7 @@ def extract_leakage(reel: Reel, files: list[str | Path]) -> Extraction:
     """
     from kinset.fitting.leakage import fit_leakage
     points = read_inputs("leakage", _inputs(reel, "leakage", files))
-    return Extraction(fit_leakage(points, leakage_settings(reel)))
+    return _reel_relative(reel, Extraction(fit_leakage(points, leakage_settings(reel))))
 
 
 def recovery_settings(reel: Reel):
@@ -192,7 +214,7 @@ def extract_recovery(reel: Reel, files: list[str | Path]) -> Extraction:
     """
     from kinset.fitting.recovery import fit_recovery
     points = read_inputs("recovery", _inputs(reel, "recovery", files))
-    return Extraction(fit_recovery(points, recovery_settings(reel)))
+    return _reel_relative(reel, Extraction(fit_recovery(points, recovery_settings(reel))))
 
 
 # Dataset -> its extraction. The CLI's `kinset extract <dataset>` and the workflow's

@@ -129,12 +129,13 @@ def make_plan(config: dict) -> Plan:
         plan.buckets[dataset] = groups
     plan.vna, plan.vna_unlisted = vna_groups(reel, plan.max_jobs)
     wanted = config.get("application")
-    if wanted is None:
+    from_reel = wanted is None         # reel.yaml's list: paths relative to the reel only
+    if from_reel:
         wanted = reel.settings["applications"]
     elif isinstance(wanted, str):
         wanted = [w.strip() for w in wanted.split(",") if w.strip()]
     for item in wanted:
-        path = resolve_profile(item, reel.folder)
+        path = resolve_profile(item, reel.folder, only_base=from_reel)
         name = path.stem
         if name in plan.applications and plan.applications[name] != str(path):
             raise InputError(f"two application profiles are both named '{name}'", path)

@@ -3,22 +3,54 @@
 from __future__ import annotations
 
 import os
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
+from typing import IO
 
 import pandas as pd
+
+
+@contextmanager
+def atomic_output(path: str | Path, binary: bool = False,
+                  encoding: str = "utf-8") -> Iterator[IO]:
+    """Open a file that replaces ``path`` only once it is completely written.
+
+    The data goes to a temporary file beside ``path`` (same folder, so the final
+    rename stays on one file system), is flushed to disk and then renamed onto
+    ``path`` in one step (``os.replace``, atomic on POSIX). A reader, or a rerun
+    after the process was killed, sees the old file or the whole new one, never a
+    part. On an error the temporary file is removed and ``path`` is left as it was.
+    Every file kinset writes goes through here.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    try:
+        with open(tmp, "wb") if binary else open(tmp, "w", encoding=encoding, newline="\n") as fh:
+            yield fh
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+
+
+def write_text(path: str | Path, text: str, encoding: str = "utf-8") -> None:
+    """Write ``text`` to ``path`` atomically (see :func:`atomic_output`), newlines as ``\\n``."""
+    with atomic_output(path, encoding=encoding) as fh:
+        fh.write(text)
 
 
 def write_csv(frame: pd.DataFrame, path: str | Path) -> None:
     """Write ``frame`` as CSV with 10 significant digits, replacing ``path`` atomically.
 
     The same frame always gives the same bytes, and a reader never sees a
-    half-written file (the table is written beside it and renamed).
+    half-written file (see :func:`atomic_output`).
     """
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(path.name + ".tmp")
-    frame.to_csv(tmp, index=False, float_format="%.10g", lineterminator="\n")
-    os.replace(tmp, path)
+    with atomic_output(path) as fh:
+        frame.to_csv(fh, index=False, float_format="%.10g", lineterminator="\n")
 
 
 def read_result(path: str | Path) -> pd.DataFrame:

@@ -7,7 +7,6 @@ The extraction step of a dataset then reads every parsed file of that dataset.
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
@@ -15,22 +14,19 @@ import pandas as pd
 
 from kinset.errors import InputError
 from kinset.io.datasets import READERS
+from kinset.io.output import atomic_output
 
 
 def save_parsed(frame: pd.DataFrame, path: str | Path) -> None:
     """Write a parsed table atomically (a half-written file is never seen)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
     arrays = {}
     for col in frame.columns:
         values = frame[col].to_numpy()
         if values.dtype == object or values.dtype.kind in "OUT":
             values = values.astype(str)
         arrays[col] = values
-    tmp = path.with_name(path.name + ".tmp")
-    with open(tmp, "wb") as fh:
+    with atomic_output(path, binary=True) as fh:
         np.savez(fh, **arrays)
-    os.replace(tmp, path)
 
 
 def load_parsed(path: str | Path) -> pd.DataFrame:

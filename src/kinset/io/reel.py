@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
-from pathlib import Path
+from pathlib import Path, PureWindowsPath
 
 from kinset.errors import InputError
 from kinset.io.config import read_yaml, validate
@@ -19,6 +20,26 @@ MATERIAL_DEFAULTS = {
     "schottky": {"eg_eV": 0.69, "xti": 2.0},
     "germanium": {"eg_eV": 0.67, "xti": 3.0},
 }
+
+
+def outside_reel(file: str, start: Path, reel: Path) -> str:
+    """Why a path written in an input file is refused ('' when it stays inside the reel).
+
+    ``file`` is relative to the folder ``start`` and must name something inside the
+    reel folder ``reel``: absolute paths (POSIX or Windows, with a drive or a share)
+    and ``..`` steps that climb out of the reel are refused. Backslashes count as
+    separators, so a path written on Windows is judged the same way.
+    """
+    if not file:
+        return "file name is empty"
+    if os.path.isabs(file) or PureWindowsPath(file).is_absolute() or \
+            PureWindowsPath(file).drive or file.startswith(("/", "\\")):
+        return f"'{file}' is an absolute path; give it relative to {start}, inside the reel folder"
+    target = os.path.normpath(os.path.join(start, file.replace("\\", "/")))
+    rel = os.path.relpath(target, os.path.normpath(reel))
+    if rel == os.pardir or rel.startswith(os.pardir + os.sep):
+        return f"'{file}' lies outside the reel folder {reel}"
+    return ""
 
 
 @dataclass(frozen=True)
@@ -74,6 +95,14 @@ def load_reel(folder: str | Path) -> Reel:
     if data is not None and not isinstance(data, dict):
         raise InputError("reel.yaml must be a mapping of keys to values", path, 1)
     settings = validate(data, "reel", path, lines)
+    for i, item in enumerate(settings.get("applications", [])):
+        # A profile named by path travels with the reel: it must be inside it.
+        # (Profiles from elsewhere are given on the command line.)
+        reason = "" if _is_profile_name(item) else outside_reel(item, folder, folder)
+        if reason:
+            raise InputError(f"{reason}; keep the profile inside the reel folder, or give it "
+                             "with --config application=PATH", path,
+                             lines.get(("applications", i)), f"applications.{i}")
     if "reel" not in settings:
         name = folder.resolve().name
         settings["reel"] = name
@@ -81,3 +110,8 @@ def load_reel(folder: str | Path) -> Reel:
         if settings.get(key) is None:
             settings[key] = value
     return Reel(folder=folder, settings=settings)
+
+
+def _is_profile_name(item: str) -> bool:
+    """A bare name (a shipped profile), not a path."""
+    return not item.endswith((".yaml", ".yml")) and "/" not in item and "\\" not in item

@@ -20,7 +20,7 @@ import os
 import re
 import warnings
 from dataclasses import dataclass
-from pathlib import Path, PureWindowsPath
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -28,6 +28,7 @@ import pandas as pd
 from kinset.errors import InputError
 from kinset.format import si
 from kinset.io.datasets import read_capacitance_index
+from kinset.io.reel import outside_reel
 
 INDEX_NAME = "index.csv"
 OPEN_DEVICE = "open"
@@ -79,7 +80,10 @@ def read_touchstone(path: str | Path) -> Sweep:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            net = skrf.Network(path)
+            # Never skrf.Network(path): given a file name it first tries to unpickle the
+            # file, which would run code from the reel. read_touchstone only parses text.
+            net = skrf.Network()
+            net.read_touchstone(path)
     except Exception as exc:  # noqa: BLE001 - any failure of the parser means "not a Touchstone file"
         text = str(exc).strip() or type(exc).__name__
         raise InputError(f"does not parse as a Touchstone file ({text})", path) from None
@@ -96,21 +100,6 @@ def read_touchstone(path: str | Path) -> Sweep:
 
 
 # --------------------------------------------------------------------------- the index
-
-def _outside_reel(file: str, folder: Path, reel: Path) -> str:
-    """Why an index path is refused ('' when it is fine)."""
-    if not file:
-        return "file name is empty"
-    if os.path.isabs(file) or PureWindowsPath(file).is_absolute() or \
-            PureWindowsPath(file).drive or file.startswith(("/", "\\")):
-        return (f"'{file}' is an absolute path; give the file relative to the "
-                f"capacitance folder, inside the reel folder")
-    target = os.path.normpath(os.path.join(folder, file.replace("\\", "/")))
-    rel = os.path.relpath(target, os.path.normpath(reel))
-    if rel == os.pardir or rel.startswith(os.pardir + os.sep):
-        return f"'{file}' lies outside the reel folder {reel}; keep VNA files inside the reel"
-    return ""
-
 
 def read_vna_index(path: str | Path) -> pd.DataFrame:
     """Read ``capacitance/index.csv`` and check every row.
@@ -144,9 +133,9 @@ def read_vna_index(path: str | Path) -> pd.DataFrame:
                          f"{', '.join(FIXTURES)}", path, int(lines[i]), "fixture")
     resolved = []
     for file, line in zip(frame["file"].astype(str), lines):
-        reason = _outside_reel(file, folder, reel)
+        reason = outside_reel(file, folder, reel)
         if reason:
-            raise InputError(reason, path, int(line), "file")
+            raise InputError(f"{reason}; keep VNA files inside the reel", path, int(line), "file")
         resolved.append(os.path.normpath(os.path.join(folder, file.replace("\\", "/"))))
     frame["fixture"] = fixtures.to_numpy()
     frame["path"] = resolved

@@ -108,13 +108,19 @@ def shipped_profiles() -> dict[str, Path]:
     return {Path(str(p)).stem: Path(str(p)) for p in folder.iterdir() if str(p).endswith(".yaml")}
 
 
-def resolve_profile(name_or_path: str, base: Path | None = None) -> Path:
-    """Path of a profile given as a shipped name or a YAML path (relative to ``base``)."""
+def resolve_profile(name_or_path: str, base: Path | None = None, only_base: bool = False) -> Path:
+    """Path of a profile given as a shipped name or a YAML path.
+
+    A relative path is looked for under ``base`` first, then (unless ``only_base``:
+    a path written in reel.yaml is relative to the reel folder alone) in the working
+    folder.
+    """
     shipped = shipped_profiles()
     if name_or_path in shipped:
         return shipped[name_or_path]
     p = Path(name_or_path)
-    for candidate in ([base / p] if base is not None and not p.is_absolute() else []) + [p]:
+    candidates = [base / p] if base is not None and not p.is_absolute() else []
+    for candidate in candidates + ([] if only_base else [p]):
         if candidate.suffix in (".yaml", ".yml") and candidate.is_file():
             return candidate
     raise InputError(f"no application profile '{name_or_path}': give a YAML file or one of "

@@ -16,7 +16,7 @@ from scipy.spatial import cKDTree
 
 from kinset.errors import InputError
 from kinset.format import si
-from kinset.io.output import read_result, write_csv
+from kinset.io.output import read_result, write_csv, write_text
 from kinset.matching.criteria import effective_tolerance, evaluate, normalise, spread
 from kinset.matching.profile import Profile, load_profile
 from kinset.matching.sets import form_sets
@@ -187,9 +187,7 @@ def write_match(result: MatchResult, folder: str | Path, positions: dict | None 
     un = un[["device", "reason", "position", "stage"]]
     write_csv(sets, folder / "sets.csv")
     write_csv(un, folder / "unmatched.csv")
-    tmp = folder / "summary.json.tmp"
-    tmp.write_text(json.dumps(result.summary, indent=2, sort_keys=True) + "\n", encoding="utf-8")
-    tmp.replace(folder / "summary.json")
+    write_text(folder / "summary.json", json.dumps(result.summary, indent=2, sort_keys=True) + "\n")
 
 
 def run_match(results: str | Path, application: str, out: str | Path) -> MatchResult:

@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass
 from pathlib import Path
 
 from kinset import __version__
-from kinset.io.output import write_csv
+from kinset.io.output import write_csv, write_text
 from kinset.report.html import render_page
 from kinset.report.inputs import load_inputs
 from kinset.report.picklist import pick_list
@@ -23,13 +22,6 @@ class ReportResult:
     placed: int
     unmatched: int
     page_bytes: int
-
-
-def _write_text(path: Path, text: str, encoding: str) -> None:
-    tmp = path.with_name(path.name + ".tmp")
-    with open(tmp, "w", encoding=encoding, newline="\n") as fh:
-        fh.write(text)
-    os.replace(tmp, path)
 
 
 def write_report(results: str | Path, application: str, out: str | Path,
@@ -57,8 +49,8 @@ def write_report(results: str | Path, application: str, out: str | Path,
     lib, names = models_lib(inputs.sets, inputs.tables, inputs.reel, title, version)
     picks = pick_list(inputs.sets)
     page = render_page(inputs, names, picks, lib, version)
-    _write_text(out / "models.lib", lib, "ascii")
+    write_text(out / "models.lib", lib, "ascii")
     write_csv(picks, out / "pick_list.csv")
-    _write_text(out / "report.html", page, "utf-8")
+    write_text(out / "report.html", page)
     return ReportResult(out, int(inputs.sets["set"].nunique()) if len(inputs.sets) else 0,
                         len(inputs.sets), len(inputs.unmatched), len(page.encode("utf-8")))

@@ -484,9 +484,8 @@ def _provenance_section(inp: ReportInputs, version: str) -> str:
     files = [[f"<code>{e(f.label)}</code>", e(f.size), f"<code>{e(f.sha256)}</code>"]
              for f in inp.files]
     return ('<section id="provenance"><h2>Provenance</h2>'
-            f"<p>Written by kinset {e(version)} from the files below; the newest of them was "
-            f"last changed {e(inp.newest_input)} (UTC). The same files give the same page, "
-            "byte for byte.</p>"
+            f"<p>Written by kinset {e(version)} from the files below, each named with its "
+            "size and SHA-256 digest. The same files give the same page, byte for byte.</p>"
             "<h3>Reel</h3>"
             + _table(["setting", "value"], [[f"<code>{e(k)}</code>", e(v)] for k, v in reel_rows])
             + "<h3>Matching</h3>" + _table(["", "value"], match_rows)

@@ -1,8 +1,8 @@
 """What a report is made from: the match outputs, the extraction tables, the reel, the profile.
 
-Every file read is fingerprinted (size, SHA-256, modification time) for the page's
-provenance section. Nothing here depends on the time of day or the working folder,
-so the same inputs always give the same report.
+Every file read is fingerprinted (size, SHA-256) for the page's provenance section.
+Nothing here depends on the time of day, on when a file was written or on the working
+folder, so the same inputs always give the same report.
 """
 
 from __future__ import annotations
@@ -10,7 +10,6 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
@@ -33,7 +32,6 @@ class InputFile:
     label: str        # shown on the page: the path relative to the results folder
     size: int         # [byte]
     sha256: str
-    mtime: float      # [s since the epoch]
 
 
 @dataclass
@@ -54,14 +52,6 @@ class ReportInputs:
     @property
     def reel_id(self) -> str:
         return str(self.reel.get("reel") or self.results.name)
-
-    @property
-    def newest_input(self) -> str:
-        """When the inputs last changed: the newest modification time, ISO 8601 in UTC."""
-        if not self.files:
-            return "n/a"
-        t = max(f.mtime for f in self.files)
-        return datetime.fromtimestamp(int(t), tz=timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
 
     def table(self, name: str) -> pd.DataFrame | None:
         return self.tables.get(name)
@@ -87,8 +77,7 @@ def fingerprint(path: Path, label: str) -> InputFile:
     with open(path, "rb") as fh:
         for block in iter(lambda: fh.read(1 << 20), b""):
             digest.update(block)
-    st = path.stat()
-    return InputFile(label, st.st_size, digest.hexdigest(), st.st_mtime)
+    return InputFile(label, path.stat().st_size, digest.hexdigest())
 
 
 def _label(path: Path, results: Path) -> str:
