@@ -91,7 +91,8 @@ def _cmd_report(args) -> None:
 def _cmd_demo(args) -> None:
     from kinset.demo import write_demo
     try:
-        out = write_demo(Path(args.out), devices=args.devices, seed=args.seed)
+        out = write_demo(Path(args.out), devices=args.devices, seed=args.seed,
+                         layout=args.layout)
     except (FileExistsError, ValueError) as exc:
         raise InputError(f"{exc}", args.out) from None
     print(f"demo reel written to {out}", file=sys.stderr)
@@ -160,6 +161,11 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--out", required=True)
     m.add_argument("--devices", type=int, default=240)
     m.add_argument("--seed", type=int, default=412)
+    m.add_argument("--layout", choices=["workshop", "batches", "per-part"],
+                   help="workshop: a small reel of mixed instruments and formats; batches: "
+                   "every part on every station at production point counts, in batch files "
+                   "of 250 part numbers; per-part: the same, one file per part and station "
+                   "(default: workshop up to 240 devices, batches above)")
     m.set_defaults(func=_cmd_demo)
     return p
 
