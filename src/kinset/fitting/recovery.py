@@ -121,12 +121,16 @@ class RecoverySettings:
 def _boxcar(x: np.ndarray, half: np.ndarray) -> np.ndarray:
     """Moving average of each row over ±half[row] samples (shrinking at the ends)."""
     g, n = x.shape
-    c = np.concatenate([np.zeros((g, 1)), np.cumsum(x, axis=1)], axis=1)
-    j = np.arange(n)[None, :]
-    lo = np.clip(j - half[:, None], 0, n)
-    hi = np.clip(j + half[:, None] + 1, 0, n)
-    r = np.arange(g)[:, None]
-    return (c[r, hi] - c[r, lo]) / (hi - lo)
+    c = np.zeros((g, n + 1))
+    np.cumsum(x, axis=1, out=c[:, 1:])
+    out = np.empty_like(c[:, 1:])
+    j = np.arange(n)
+    for h in np.unique(half):       # rows of one width share their window bounds
+        rows = np.flatnonzero(half == h)
+        lo, hi = np.clip(j - h, 0, n), np.clip(j + h + 1, 0, n)
+        block = c[rows]
+        out[rows] = (block[:, hi] - block[:, lo]) / (hi - lo)
+    return out
 
 
 def _noise_gain(half: int) -> float:
@@ -407,6 +411,10 @@ def _uniform(t: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool
     return grid, np.interp(grid, t, i), True
 
 
+# Samples analysed in one stack: each of the analysis' temporaries is this many floats
+# (8 MB), so memory stays flat whatever the reel's size, and the arrays stay in cache.
+STACK_SAMPLES = 1_000_000
+
 RESULT_COLUMNS = ("trr_s", "ta_s", "tb_s", "irrm_A", "qrr_C", "softness", "tt_s", "if_A",
                   "ir_A", "t0_s", "end_level_A", "decay_tau_s", "noise_A")
 
@@ -435,7 +443,7 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
     """
     s = settings
     dev_codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
-    src_codes, _ = pd.factorize(points["source"].astype(str).to_numpy(), sort=True)
+    src_codes, src_names = pd.factorize(points["source"].astype(str).to_numpy(), sort=True)
     t_all = points["time"].to_numpy(dtype=float)
     i_all = points["current"].to_numpy(dtype=float)
     order = np.lexsort((t_all, src_codes, dev_codes))
@@ -455,10 +463,13 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
     t_u, wave_u = t[first], wave[first]
     repeated = np.bincount(wave_u, counts > 1, n_wave)
     wave_dev = dc[np.flatnonzero(wave_new)]
-    wave_src = points["source"].astype(str).to_numpy()[order][np.flatnonzero(wave_new)]
+    wave_src = np.asarray(src_names, dtype=object)[sc[np.flatnonzero(wave_new)]]
 
     def condition(column, default):
-        x = points[column].to_numpy(dtype=float)[order] if column in points else np.full(len(dc), np.nan)
+        x = points[column].to_numpy(dtype=float) if column in points else None
+        if x is None or not np.isfinite(x).any():   # not in the files: reel.yaml's value
+            return np.full(n_wave, default), np.zeros(n_wave, dtype=bool)
+        x = x[order]
         ok = np.isfinite(x)
         val = pd.Series(np.where(ok, x, np.nan)).groupby(wave).median().to_numpy()
         given = np.isfinite(val)
@@ -478,14 +489,16 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
     res = {k: np.full(n_wave, np.nan) for k in RESULT_COLUMNS}
     reject = np.full(n_wave, "", dtype=object)
     warn = np.full(n_wave, "", dtype=object)
-    for n in np.unique(length):     # waveforms of equal length are stacked
-        ids = np.flatnonzero(length == n)
-        tt = np.stack([waves_t[w] for w in ids])
-        ii = np.stack([waves_i[w] for w in ids])
-        a = analyse_waveforms(tt, ii, s)
-        for k in RESULT_COLUMNS:
-            res[k][ids] = a[k]
-        reject[ids], warn[ids] = a["reject"], a["warn"]
+    for n in np.unique(length):     # waveforms of equal length are stacked, a block at a time
+        same = np.flatnonzero(length == n)
+        block = max(1, STACK_SAMPLES // max(int(n), 1))
+        for ids in (same[i:i + block] for i in range(0, len(same), block)):
+            tt = np.stack([waves_t[w] for w in ids])
+            ii = np.stack([waves_i[w] for w in ids])
+            a = analyse_waveforms(tt, ii, s)
+            for k in RESULT_COLUMNS:
+                res[k][ids] = a[k]
+            reject[ids], warn[ids] = a["reject"], a["warn"]
     dt = np.array([(x[-1] - x[0]) / (len(x) - 1) if len(x) > 1 else np.nan for x in waves_t])
     t_first = np.array([x[0] for x in waves_t])
     t_final = np.array([x[-1] for x in waves_t])
@@ -515,46 +528,63 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
         if repeated[w]:
             note.append(f"{repeated[w]} repeated time stamp(s) averaged")
 
-    # One row per device: the mean of its usable captures.
-    rows = []
-    for d, name in enumerate(names):
-        ws = np.flatnonzero(wave_dev == d)
-        good = ws[status_w[ws] != "rejected"]
-        row: dict[str, object] = {"device": str(name)}
-        if len(good) == 0:
-            w = ws[0]
-            row["status"] = "rejected"
-            row["note"] = "; ".join(wave_notes[w]) + (
-                f" (all {len(ws)} captures rejected)" if len(ws) > 1 else "")
-            chosen = ws
+    # One row per device: the mean of its usable captures (waves are sorted by device).
+    n_dev = len(names)
+    good = status_w != "rejected"
+    n_good = np.bincount(wave_dev, good, n_dev)
+    n_all = np.bincount(wave_dev, minlength=n_dev)
+    # The captures a device's conditions come from: its usable ones, or all when none is.
+    chosen = good | (n_good[wave_dev] == 0)
+    n_chosen = np.bincount(wave_dev, chosen, n_dev)
+
+    def mean_of(x, use, count):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.bincount(wave_dev[use], x[use], n_dev) / np.where(count > 0, count, np.nan)
+
+    def extreme(x, pick):
+        out = np.full(n_dev, -np.inf if pick is np.maximum else np.inf)
+        pick.at(out, wave_dev[chosen], x[chosen])
+        return out
+
+    table = {"device": [str(x) for x in names]}
+    status = np.where(n_good == 0, "rejected", "ok").astype(object)
+    status[np.unique(wave_dev[good & (status_w == "warning")])] = "warning"
+    table["status"] = status
+    first_wave = np.searchsorted(wave_dev, np.arange(n_dev))
+    notes = []
+    for d in range(n_dev):
+        w0 = first_wave[d]
+        if n_all[d] == 1:               # the usual case: one capture per device
+            note = "; ".join(dict.fromkeys(wave_notes[w0]))
         else:
-            chosen = good
-            row["status"] = "warning" if (status_w[good] == "warning").any() else "ok"
-            note = []
-            for w in good:
-                note += [x for x in wave_notes[w] if x not in note]
-            if len(ws) > 1:
-                spread = np.ptp(res["trr_s"][good])
-                note.append(f"mean of {len(good)} captures"
-                            + (f" ({len(ws) - len(good)} rejected)" if len(good) < len(ws) else "")
-                            + f", trr spread {si(spread, 's')}")
-            row["note"] = "; ".join(note)
-        for k in RESULT_COLUMNS:
-            row[k] = float(np.mean(res[k][good])) if len(good) else np.nan
-        row["if_set_A"] = float(np.mean(if_set[chosen]))
-        row["ir_set_A"] = float(np.mean(ir_set[chosen]))
-        row["end_rule"] = s.describe()
-        row["samples"] = int(np.sum(length[chosen]))
-        row["sample_period_s"] = float(np.mean(dt[chosen]))
-        row["record_start_s"] = float(np.min(t_first[chosen]))
-        row["record_end_s"] = float(np.max(t_final[chosen]))
-        row["captures"] = len(ws)
-        if len(ws) > 1:
+            ws = np.arange(w0, w0 + n_all[d])
+            ok = ws[good[ws]]
+            if not len(ok):
+                note = "; ".join(wave_notes[w0]) + f" (all {len(ws)} captures rejected)"
+            else:
+                parts: list[str] = []
+                for w in ok:
+                    parts += [x for x in wave_notes[w] if x not in parts]
+                parts.append(f"mean of {len(ok)} captures"
+                             + (f" ({len(ws) - len(ok)} rejected)" if len(ok) < len(ws) else "")
+                             + f", trr spread {si(np.ptp(res['trr_s'][ok]), 's')}")
+                note = "; ".join(parts)
             files = ", ".join(sorted({Path(wave_src[w]).name for w in ws}))
-            row["note"] = "; ".join(x for x in (row["note"], f"files {files}") if x)
-        rows.append(row)
+            note = "; ".join(x for x in (note, f"files {files}") if x)
+        notes.append(note)
+    table["note"] = notes
+    for k in RESULT_COLUMNS:
+        table[k] = mean_of(res[k], good, n_good)
+    table["if_set_A"] = mean_of(if_set, chosen, n_chosen)
+    table["ir_set_A"] = mean_of(ir_set, chosen, n_chosen)
+    table["end_rule"] = s.describe()
+    table["samples"] = np.bincount(wave_dev[chosen], length[chosen], n_dev).astype(np.int64)
+    table["sample_period_s"] = mean_of(dt, chosen, n_chosen)
+    table["record_start_s"] = extreme(t_first, np.minimum)
+    table["record_end_s"] = extreme(t_final, np.maximum)
+    table["captures"] = n_all
     columns = ["device", "status", "note", "trr_s", "ta_s", "tb_s", "irrm_A", "qrr_C",
                "softness", "tt_s", "if_A", "ir_A", "t0_s", "end_level_A", "decay_tau_s",
                "noise_A", "if_set_A", "ir_set_A", "end_rule", "samples", "sample_period_s",
                "record_start_s", "record_end_s", "captures"]
-    return pd.DataFrame(rows, columns=columns)
+    return pd.DataFrame(table, columns=columns)

@@ -8,6 +8,7 @@ naming the file and the line or column.
 
 from __future__ import annotations
 
+import csv
 import io
 import re
 from dataclasses import dataclass
@@ -120,6 +121,13 @@ def _parse(body: str, keep: list[int], path: str, dtype, numeric=()) -> pd.DataF
     return table
 
 
+def _header_names(line: str) -> list[str]:
+    """The column names of a header line, as pandas names them (an empty name becomes
+    'Unnamed: <i>'), without starting its parser for one line (~3 ms a file)."""
+    names = next(csv.reader([line], skipinitialspace=True), [])
+    return [c if c.strip() else f"Unnamed: {i}" for i, c in enumerate(names)]
+
+
 def _check_header(columns, path: str, header_line: int) -> list[str]:
     cols = [str(c).strip() for c in columns]
     seen: set[str] = set()
@@ -226,8 +234,7 @@ def read_table(path: str | Path, spec: Spec | list[Spec]) -> pd.DataFrame:
     path = str(path)
     body, keep = _body(path)
     lines = keep[1:].astype(np.int64) + 1
-    header = pd.read_csv(io.StringIO(_first_line(body)), nrows=0, skipinitialspace=True)
-    cols = _check_header(header.columns, path, int(keep[0]) + 1)
+    cols = _check_header(_header_names(_first_line(body)), path, int(keep[0]) + 1)
     if isinstance(spec, list):
         spec = _choose(spec, cols)
     for name in spec.required_text:
