@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import csv
 import os
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 
@@ -17,8 +19,31 @@ def write_csv(frame: pd.DataFrame, path: str | Path) -> None:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(path.name + ".tmp")
-    frame.to_csv(tmp, index=False, float_format="%.10g", lineterminator="\n")
+    columns = [_text(frame.iloc[:, j]) for j in range(frame.shape[1])]
+    with open(tmp, "w", newline="", encoding="utf-8") as fh:
+        # The same writer and quoting pandas' to_csv uses, fed text made column by column
+        # (pandas applies a float format one cell at a time: ~2x slower on big tables).
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow([str(c) for c in frame.columns])
+        w.writerows(zip(*columns))
     os.replace(tmp, path)
+
+
+def _text(column: pd.Series) -> list[str]:
+    """A column's cells as pandas' ``to_csv(float_format="%.10g")`` writes them."""
+    v = column.to_numpy()
+    if v.dtype.kind == "f":
+        out = list(map("%.10g".__mod__, v.tolist()))
+        for i in np.flatnonzero(np.isnan(v)):
+            out[i] = ""
+        return out
+    if v.dtype.kind in "iub":
+        return list(map(str, v.tolist()))
+    missing = pd.isna(column).to_numpy()
+    out = [str(x) for x in v.tolist()]
+    for i in np.flatnonzero(missing):
+        out[i] = ""
+    return out
 
 
 def read_result(path: str | Path) -> pd.DataFrame:
