@@ -205,11 +205,21 @@ def bench(devices: int, work: Path, sample: int) -> dict:
     run(smk + ["--dry-run", "--quiet", "rules"], logs / "wf_plan_new.log")
     m["wf new jobs"] = jobs(logs / "wf_plan_new.log")
     m["wf new"] = run(smk, logs / "wf_new.log")
+
+    # The same reel as one file per part: the plan must stay in bucket jobs.
+    per_part = work / "reel-per-part"
+    run(kinset("demo", "--out", per_part, "--devices", devices, "--seed", SEED,
+               "--layout", "per-part"), logs / "demo_per_part.log")
+    run([PY, "-m", "snakemake", "-s", ROOT / "Snakefile", "--directory", work / "wf-per-part",
+         "--dry-run", "--quiet", "rules", "--config", f"reel={per_part}",
+         f"results={work / 'wf-per-part' / 'results'}"], logs / "wf_plan_per_part.log")
+    m["per-part files"] = sum(1 for f in per_part.rglob("*") if f.is_file())
+    m["per-part jobs"] = jobs(logs / "wf_plan_per_part.log")
     return m
 
 
 def _s(t: float) -> str:
-    return f"{t:.1f} s" if t < 600 else f"{t / 60:.1f} min"
+    return f"{t:.2f} s" if t < 10 else f"{t:.1f} s" if t < 600 else f"{t / 60:.1f} min"
 
 
 def _mark(ok: bool) -> str:
@@ -264,19 +274,23 @@ def table(results: list[dict]) -> str:
             cells.append(f"{hand} vs {sets} (bound {bound})")
         row(f"sort-and-pair vs kinset, {a}: sets", cells, "kinset more")
     row("snakemake jobs planned (full run)", [str(r["wf jobs"]) for r in results])
+    row("same reel, one file per part: files, jobs planned (dry run)",
+        [f"{r['per-part files']:,} files: {sum(r['per-part jobs'].values())} jobs "
+         f"({r['per-part jobs'].get('parse', 0)} parse)" for r in results],
+        "hundreds at most", [_mark(sum(r["per-part jobs"].values()) < 1000) for r in results])
     full = [r["wf full"] for r in results]
     row("`snakemake --cores 2` full run", wall_mem("wf full"), "< 5 min at 10k",
         [_mark(w < 300) if r["devices"] >= 10000 else ("met" if w < 300 else "(10k target)")
          for (w, _), r in zip(full, results)])
     noop = [r["wf noop"][0] for r in results]
     row("no-op rerun", [_s(x) for x in noop], "< 10 s", [_mark(x < 10) for x in noop])
-    expected = {"parse", "extract_forward", "devices", "match", "report"}
+    expected = {"parse", "extract_forward", "devices", "match", "report", "all"}
     new_ok = [set(r["wf new jobs"]) == expected and r["wf new jobs"]["parse"] == 1
               for r in results]
     row("rerun after one new forward batch file",
         [f"{_s(r['wf new'][0])}: " + ", ".join(f"{k} {v}" for k, v in r["wf new jobs"].items())
          for r in results],
-        "only its parse, forward, devices, match, report", [_mark(x) for x in new_ok])
+        "one parse, then forward, devices, match, report", [_mark(x) for x in new_ok])
     steps = ("extract ", "devices step", "match ", "report ", "wf full", "wf noop", "wf new")
     peak = [max(v[1] for k, v in r.items() if k.startswith(steps) and isinstance(v, tuple))
             for r in results]

@@ -419,16 +419,17 @@ RESULT_COLUMNS = ("trr_s", "ta_s", "tb_s", "irrm_A", "qrr_C", "softness", "tt_s"
                   "ir_A", "t0_s", "end_level_A", "decay_tau_s", "noise_A")
 
 
-def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFrame:
+def fit_recovery(points, settings: RecoverySettings) -> pd.DataFrame:
     """Recovery parameters of every device in a table of waveform samples.
 
     Parameters
     ----------
-    points : DataFrame
+    points : DataFrame, or an iterable of them
         ``device, time [s], current [A], forward_current [A], reverse_current [A] (NaN:
         from reel.yaml), source, line`` — as from :func:`kinset.io.datasets.read_recovery`.
         One waveform per device and file; a device captured in several files gets
-        the mean of its usable captures.
+        the mean of its usable captures. Tables given one by one (one per file, say)
+        are analysed one at a time, so memory follows the largest file, not the reel.
     settings : RecoverySettings
 
     Returns
@@ -441,6 +442,43 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
         ``end_rule``, and the capture (``samples, sample_period_s, record_start_s,
         record_end_s, captures``).
     """
+    tables = [points] if isinstance(points, pd.DataFrame) else points
+    return _device_table(_concat_captures([_captures(t, settings) for t in tables]), settings)
+
+
+@dataclass
+class _Captures:
+    """Per-capture (device and file) results, sorted by device and file."""
+
+    device: np.ndarray
+    source: np.ndarray
+    res: dict
+    status: np.ndarray
+    notes: list
+    if_set: np.ndarray
+    ir_set: np.ndarray
+    length: np.ndarray
+    dt: np.ndarray
+    t_first: np.ndarray
+    t_final: np.ndarray
+
+
+def _concat_captures(parts: list[_Captures]) -> _Captures:
+    if len(parts) == 1:
+        return parts[0]
+    device = np.concatenate([p.device for p in parts])
+    source = np.concatenate([p.source for p in parts])
+    order = np.lexsort((pd.factorize(source, sort=True)[0], pd.factorize(device, sort=True)[0]))
+    cat = lambda name: np.concatenate([getattr(p, name) for p in parts])[order]  # noqa: E731
+    notes = [n for p in parts for n in p.notes]
+    return _Captures(device[order], source[order],
+                     {k: np.concatenate([p.res[k] for p in parts])[order] for k in RESULT_COLUMNS},
+                     cat("status"), [notes[i] for i in order], cat("if_set"), cat("ir_set"),
+                     cat("length"), cat("dt"), cat("t_first"), cat("t_final"))
+
+
+def _captures(points: pd.DataFrame, settings: RecoverySettings) -> _Captures:
+    """Analyse every capture in one table of samples."""
     s = settings
     dev_codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
     src_codes, src_names = pd.factorize(points["source"].astype(str).to_numpy(), sort=True)
@@ -528,6 +566,17 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
         if repeated[w]:
             note.append(f"{repeated[w]} repeated time stamp(s) averaged")
 
+    return _Captures(np.asarray(names, dtype=object)[wave_dev], wave_src, res, status_w,
+                     wave_notes, if_set, ir_set, length, dt, t_first, t_final)
+
+
+def _device_table(c: _Captures, settings: RecoverySettings) -> pd.DataFrame:
+    """One row per device from its captures (sorted by device)."""
+    s = settings
+    wave_dev, names = pd.factorize(c.device, sort=True)
+    res, status_w, wave_notes, wave_src = c.res, c.status, c.notes, c.source
+    if_set, ir_set, length, dt, t_first, t_final = (c.if_set, c.ir_set, c.length, c.dt,
+                                                    c.t_first, c.t_final)
     # One row per device: the mean of its usable captures (waves are sorted by device).
     n_dev = len(names)
     good = status_w != "rejected"
