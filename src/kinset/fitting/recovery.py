@@ -396,6 +396,17 @@ def analyse_waveforms(time: np.ndarray, current: np.ndarray, settings: RecoveryS
 
 # --------------------------------------------------------------------------- the table
 
+def _in_order(*keys) -> bool:
+    """Whether rows are already sorted by keys[0], then keys[1], ... (as lexsort would)."""
+    tied = np.ones(max(len(keys[0]) - 1, 0), dtype=bool)
+    for k in keys:
+        step = np.diff(k)
+        if (tied & (step < 0)).any():
+            return False
+        tied &= step == 0
+    return True
+
+
 def _uniform(t: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool]:
     """The waveform on a uniform grid (resampled linearly when the steps differ)."""
     if len(t) < 3:
@@ -484,7 +495,10 @@ def _captures(points: pd.DataFrame, settings: RecoverySettings) -> _Captures:
     src_codes, src_names = pd.factorize(points["source"].astype(str).to_numpy(), sort=True)
     t_all = points["time"].to_numpy(dtype=float)
     i_all = points["current"].to_numpy(dtype=float)
-    order = np.lexsort((t_all, src_codes, dev_codes))
+    # Files list each capture's samples in time order, one device after another: then
+    # the sort is the identity and is skipped.
+    order = slice(None) if _in_order(dev_codes, src_codes, t_all) else \
+        np.lexsort((t_all, src_codes, dev_codes))
     dc, sc, t, cur = dev_codes[order], src_codes[order], t_all[order], i_all[order]
     wave_new = np.ones(len(dc), dtype=bool)
     wave_new[1:] = (dc[1:] != dc[:-1]) | (sc[1:] != sc[:-1])
