@@ -65,19 +65,45 @@ class Failed(RuntimeError):
     pass
 
 
-def run(cmd: list, log: Path) -> tuple[float, float]:
+TIMEOUT = None     # seconds a step may take (--timeout); None: no limit
+
+
+class TimedOut(RuntimeError):
+    def __init__(self, wall, peak):
+        super().__init__(f"stopped after {wall:.0f} s")
+        self.wall, self.peak = wall, peak
+
+
+def run(cmd: list, log: Path, timeout: float | None = None) -> tuple[float, float]:
     """Run ``cmd``; wall time [s] and peak resident memory [MB] of it and its children."""
     log.parent.mkdir(parents=True, exist_ok=True)
     with open(log, "w") as out:
         t0 = time.perf_counter()
         proc = subprocess.Popen([str(c) for c in cmd], stdout=out, stderr=subprocess.STDOUT,
-                                env=ENV, cwd=ROOT)
-        _, status, usage = os.wait4(proc.pid, 0)
-        wall = time.perf_counter() - t0
+                                env=ENV, cwd=ROOT, start_new_session=True)
+        while True:
+            pid, status, usage = os.wait4(proc.pid, os.WNOHANG)
+            wall = time.perf_counter() - t0
+            if pid:
+                break
+            if timeout is not None and wall > timeout:
+                os.killpg(proc.pid, 9)          # this step's own process group only
+                _, status, usage = os.wait4(proc.pid, 0)
+                proc.returncode = -9
+                raise TimedOut(wall, usage.ru_maxrss / 1024)
+            time.sleep(0.05)
     proc.returncode = os.waitstatus_to_exitcode(status)
     if proc.returncode:
         raise Failed(f"{' '.join(map(str, cmd))} failed ({proc.returncode}); see {log}")
     return wall, usage.ru_maxrss / 1024
+
+
+def timed(cmd: list, log: Path):
+    """:func:`run`, with a step stopped at the time limit recorded as (wall, peak, 'stopped')."""
+    try:
+        return run(cmd, log, TIMEOUT)
+    except TimedOut as exc:
+        return exc.wall, exc.peak, "stopped"
 
 
 def kinset(*args) -> list:
@@ -191,21 +217,27 @@ def bench(devices: int, work: Path, sample: int) -> dict:
     apps = load_reel(reel).settings["applications"]
     m["applications"] = apps
     for a in apps:
-        m[f"match {a}"] = run(kinset("match", "--results", steps, "--application", a,
-                                     "-o", steps / a), logs / f"match_{a}.log")
+        m[f"match {a}"] = timed(kinset("match", "--results", steps, "--application", a,
+                                       "-o", steps / a), logs / f"match_{a}.log")
         print(f"  {devices}: match {a} {m[f'match {a}'][0]:.1f} s", file=sys.stderr)
+        if len(m[f"match {a}"]) == 3:
+            continue
         m[f"report {a}"] = run(kinset("report", "--results", steps, "--application", a,
                                       "-o", steps / a), logs / f"report_{a}.log")
         summary = json.loads((steps / a / "summary.json").read_text())
         m[f"sets {a}"] = (summary["sets"], summary["upper_bound"], summary["set_size"])
         m[f"by hand {a}"] = sort_and_pair(steps, a)
+    # The workflow runs the applications whose matching finished in time.
+    workflow_apps = [a for a in apps if len(m[f"match {a}"]) == 2]
+    m["workflow applications"] = workflow_apps
     m["loop"] = curve_fit_baseline(reel, steps, sample)
     print(f"  {devices}: curve_fit loop done", file=sys.stderr)
 
     wf = work / "workflow"
     smk = [PY, "-m", "snakemake", "-s", ROOT / "Snakefile", "--profile",
            ROOT / "profiles" / "default", "--directory", wf, "--cores", "2", "--config",
-           f"reel={reel}", f"results={wf / 'results'}"]
+           f"reel={reel}", f"results={wf / 'results'}",
+           f"application={','.join(workflow_apps) or apps[0]}"]
     run(smk + ["--dry-run", "--quiet", "rules"], logs / "wf_plan.log")
     m["wf jobs"] = sum(jobs(logs / "wf_plan.log").values())
     m["wf full"] = run(smk, logs / "wf_full.log")
@@ -248,7 +280,13 @@ def table(results: list[dict]) -> str:
                      + " | ".join(marks) + " |")
 
     def wall_mem(key):
-        return [f"{_s(r[key][0])}, {r[key][1]:.0f} MB" for r in results]
+        return [("—" if key not in r else
+                 f"{'> ' if len(r[key]) == 3 else ''}{_s(r[key][0])}, {r[key][1]:.0f} MB"
+                 + (" (stopped at the time limit)" if len(r[key]) == 3 else ""))
+                for r in results]
+
+    def value(r, key, fmt):
+        return fmt(r[key]) if key in r else "—"
 
     row("reel: files (fwd/leak/C-V/recovery/Touchstone), size",
         [f"{r['files']['forward']}/{r['files']['leakage']}/{r['files']['capacitance']}/"
@@ -282,11 +320,8 @@ def table(results: list[dict]) -> str:
         row(f"&nbsp;&nbsp;median error of {q} vs truth.csv: kinset / loop",
             [f"{a:.1e} / {b:.1e}" for a, b in e], "kinset ≤ loop", [_mark(a <= b) for a, b in e])
     for a in results[0]["applications"]:
-        cells = []
-        for r in results:
-            sets, bound, size = r[f"sets {a}"]
-            hand = r[f"by hand {a}"][0]
-            cells.append(f"{hand} vs {sets} (bound {bound})")
+        cells = [value(r, f"sets {a}", lambda x, r=r: f"{r[f'by hand {a}'][0]} vs {x[0]} "
+                       f"(bound {x[1]})") for r in results]
         row(f"sort-and-pair vs kinset, {a}: sets", cells, "kinset more")
     row("snakemake jobs planned (full run)", [str(r["wf jobs"]) for r in results])
     row("same reel, one file per part: files, jobs planned (dry run)",
@@ -294,6 +329,8 @@ def table(results: list[dict]) -> str:
          f"({r['per-part jobs'].get('parse', 0)} parse)" for r in results],
         "hundreds at most", [_mark(sum(r["per-part jobs"].values()) < 1000) for r in results])
     full = [r["wf full"] for r in results]
+    row("applications in the workflow runs", [", ".join(r["workflow applications"])
+                                               for r in results], "both")
     row("`snakemake --cores 2` full run", wall_mem("wf full"), "< 5 min at 10k",
         [_mark(w < 300) if r["devices"] >= 10000 else ("met" if w < 300 else "(10k target)")
          for (w, _), r in zip(full, results)])
@@ -309,8 +346,11 @@ def table(results: list[dict]) -> str:
     steps = ("extract ", "devices step", "match ", "report ", "wf full", "wf noop", "wf new")
     peak = [max(v[1] for k, v in r.items() if k.startswith(steps) and isinstance(v, tuple))
             for r in results]
-    row("peak memory, any step or the whole workflow", [f"{x:.0f} MB" for x in peak],
-        "< 2 GB", [_mark(x < 2048) for x in peak])
+    stopped = [any(isinstance(v, tuple) and v[-1] == "stopped" for v in r.values())
+               for r in results]
+    row("peak memory, any step or the whole workflow",
+        [f"{x:.0f} MB" + (" (a stopped step included)" if st else "")
+         for x, st in zip(peak, stopped)], "< 2 GB", [_mark(x < 2048) for x in peak])
     return "\n".join(lines)
 
 
@@ -321,13 +361,20 @@ def main() -> None:
                     "a temporary folder, removed afterwards)")
     ap.add_argument("--loop-sample", type=int, default=250,
                     help="parts the curve_fit loop is timed on (scaled to the reel)")
+    ap.add_argument("--timeout", type=float, default=900,
+                    help="seconds a matching step may take before it is stopped and marked "
+                    "so (its application then stays out of the workflow runs); default 900")
     args = ap.parse_args()
+    global TIMEOUT
+    TIMEOUT = args.timeout
     with tempfile.TemporaryDirectory(prefix="kinset-bench-") as tmp:
         base = args.work or Path(tmp)
         results = []
         for n in args.devices:
             print(f"reel of {n} parts in {base / str(n)}", file=sys.stderr)
             results.append(bench(n, base / str(n), args.loop_sample))
+            (base / str(n) / "measurements.json").write_text(json.dumps(results[-1], indent=1))
+            print(table(results[-1:]), file=sys.stderr)
         print(table(results))
         print()
         print(f"2 cores; times are wall clock of one run; {sys.version.split()[0]}")
