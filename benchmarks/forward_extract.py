@@ -61,9 +61,14 @@ def errors(fit: pd.DataFrame, truth: pd.DataFrame) -> dict[str, np.ndarray]:
 
 def curve_fit_loop(files, settings) -> pd.DataFrame:
     """What one would write by hand: read each file, loop over parts, curve_fit each."""
+    points = pd.concat([pd.read_csv(f, comment="#") for f in files], ignore_index=True)
+    return curve_fit_points(points, settings)
+
+
+def curve_fit_points(points: pd.DataFrame, settings) -> pd.DataFrame:
+    """One ``curve_fit`` per part of a ``device, current_A, voltage_V, temperature_C`` table."""
     s = settings
-    points = pd.concat([pd.read_csv(f) for f in files], ignore_index=True)
-    points["temperature"] = points["temperature_C"] + 273.15
+    points = points.assign(temperature=points["temperature_C"] + 273.15)
     points = points.rename(columns={"current_A": "current", "voltage_V": "voltage"})
     rows = []
     for dev, g in points.groupby("device", sort=True):

@@ -171,6 +171,10 @@ def test_conditions_from_columns_and_captures_from_two_files(tmp_path):
     single = [run(frame("D1", *w)).loc["D1", "trr_s"] for w in ((t, i), (t2, i2))]
     assert row["trr_s"] == pytest.approx(np.mean(single), rel=1e-9)
     assert row["captures"] == 2 and "mean of 2 captures" in row["note"]
+    # The files given one table each (as the extraction streams them): the same row.
+    split = run([points[points["source"] == "b.csv"], points[points["source"] == "a.csv"],
+                 frame("D2", t, i, source="b.csv")])
+    pd.testing.assert_series_equal(split.loc["D1"], row)
     # Without the column, reel.yaml's 10 mA is the condition: the 20 mA level is noted.
     row = run(frame("D1", t, i)).loc["D1"]
     assert row["status"] == "warning" and "forward level" in row["note"]

@@ -110,7 +110,11 @@ _BATCH_TITLES = {
 
 _OWNED = ("reel.yaml", "truth.csv", "forward/batch_*.csv", "leakage/leak_*.csv",
           "capacitance/cv_*.csv", "capacitance/index.csv", "capacitance/vna_*.s1p",
-          "capacitance/open_*.s1p", "recovery/rr_*.csv")
+          "capacitance/open_*.s1p", "recovery/rr_*.csv", "forward/fwd_*.csv")
+# Layouts: the workshop reel (mixed instruments and formats, small batches), or a
+# production reel of every part on every station (kinset.demo_production), in batch
+# files or one file per part.
+LAYOUTS = ("workshop", "batches", "per-part")
 
 
 # --------------------------------------------------------------------------- formatting
@@ -343,11 +347,9 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
 
 # --------------------------------------------------------------------------- leakage
 
-def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
-    from scipy.optimize import brentq
-
-    rng = np.random.default_rng([seed, 3])
-    out = {}
+def _leakage_readings(p: pd.DataFrame, voltages: np.ndarray, rng):
+    """Fixture temperatures (text), model arguments per device, true and measured currents
+    at ``voltages`` (devices, points), and the noise of each compliance reading."""
     n = len(p)
     temp_text = _fixed(25.0 + 0.2 * rng.standard_normal(n), 1)
     temp = _parsed(temp_text) + ZERO_CELSIUS
@@ -358,12 +360,28 @@ def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
                 breakdown_voltage=p["bv_V"].to_numpy()[:, None],
                 breakdown_current=BREAKDOWN_CURRENT,
                 breakdown_ideality=p["nbv"].to_numpy()[:, None])
-    cur = reverse_current(LEAKAGE_VOLTAGES[None, :], **args)
+    cur = reverse_current(voltages[None, :], **args)
     noisy = cur * (1 + 5e-3 * rng.standard_normal(cur.shape)) \
         + 5e-12 * rng.standard_normal(cur.shape)
     noisy = np.abs(noisy)
     v_noise = rng.standard_normal(n)
     i_noise = rng.standard_normal(n)
+    return temp_text, args, cur, noisy, v_noise, i_noise
+
+
+def _compliance_voltage(args: dict, d: int, lo: float, hi: float) -> float:
+    """Reverse voltage at which device ``d`` draws the source's current limit [V]."""
+    from scipy.optimize import brentq
+    one = {k: (v[d, 0] if isinstance(v, np.ndarray) else v) for k, v in args.items()}
+    return brentq(lambda v: float(reverse_current(v, **one)) - LEAKAGE_COMPLIANCE,
+                  lo, hi, xtol=1e-9)
+
+
+def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
+    rng = np.random.default_rng([seed, 3])
+    out = {}
+    n = len(p)
+    temp_text, args, cur, noisy, v_noise, i_noise = _leakage_readings(p, LEAKAGE_VOLTAGES, rng)
     dev_rows, v_rows, i_rows, t_rows = [], [], [], []
     for d in range(n):
         over = np.flatnonzero(cur[d] >= LEAKAGE_COMPLIANCE)
@@ -371,10 +389,8 @@ def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
         v_txt = _fixed(LEAKAGE_VOLTAGES[:stop], 3)
         i_txt = _sci(noisy[d, :stop], 4)
         if over.size:   # the source hits its current limit and reports the voltage reached
-            one = {k: (v[d, 0] if isinstance(v, np.ndarray) else v) for k, v in args.items()}
             lo = LEAKAGE_VOLTAGES[stop - 1] if stop else 0.0
-            v_c = brentq(lambda v: float(reverse_current(v, **one)) - LEAKAGE_COMPLIANCE,
-                         lo, LEAKAGE_VOLTAGES[stop], xtol=1e-9)
+            v_c = _compliance_voltage(args, d, lo, LEAKAGE_VOLTAGES[stop])
             v_txt += _fixed([v_c + 1e-3 * v_noise[d]], 3)
             i_txt += _sci([LEAKAGE_COMPLIANCE * (1 + 2e-4 * i_noise[d])], 4)
         dev_rows += [p["device"].iloc[d]] * len(v_txt)
@@ -400,15 +416,20 @@ def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
 
 # --------------------------------------------------------------------------- capacitance
 
+def _cv_readings(sel: pd.DataFrame, rng) -> np.ndarray:
+    """Measured C at CV_VOLTAGES (devices, biases) [F]: LCR meter gain and offset noise."""
+    c = junction_capacitance(CV_VOLTAGES[None, :], sel["cjo_F"].to_numpy()[:, None],
+                             sel["vj_V"].to_numpy()[:, None], sel["m"].to_numpy()[:, None])
+    return c * (1 + 2e-3 * rng.standard_normal(c.shape)) + 3e-15 * rng.standard_normal(c.shape)
+
+
 def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
     import skrf
 
     rng = np.random.default_rng([seed, 4])
     out = {}
     sel = p[p["capacitance"] != ""].reset_index(drop=True)
-    c = junction_capacitance(CV_VOLTAGES[None, :], sel["cjo_F"].to_numpy()[:, None],
-                             sel["vj_V"].to_numpy()[:, None], sel["m"].to_numpy()[:, None])
-    c = c * (1 + 2e-3 * rng.standard_normal(c.shape)) + 3e-15 * rng.standard_normal(c.shape)
+    c = _cv_readings(sel, rng)
     k = len(CV_VOLTAGES)
     for j, sl in enumerate(_chunks(len(sel), 80), start=1):
         part = sel.iloc[sl]
@@ -472,13 +493,9 @@ def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
 
 # --------------------------------------------------------------------------- recovery
 
-def _recovery_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
-    rng = np.random.default_rng([seed, 6])
-    out = {}
-    sel = p[p["recovery"]].reset_index(drop=True)
+def _recovery_readings(sel: pd.DataFrame, t: np.ndarray, rng) -> np.ndarray:
+    """Scope samples of the recovery current at times ``t`` (1, samples) [A], per device."""
     nd = len(sel)
-    t_text = _fixed((RECOVERY_START + RECOVERY_STEP * np.arange(RECOVERY_SAMPLES)) * 1e9, 1)
-    t = _parsed(t_text)[None, :] * 1e-9
     col = lambda name: sel[name].to_numpy()[:, None]
     t0 = 0.05e-9 * rng.standard_normal((nd, 1))            # trigger jitter
     fall = 0.6e-9 * (1 + 0.03 * rng.standard_normal((nd, 1)))
@@ -492,6 +509,17 @@ def _recovery_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
     onset = 0.5 * (1 + np.tanh(2.0 * dt / fall))
     ring = amp * onset * np.exp(-np.maximum(dt, 0.0) / 1.0e-9) * np.sin(2 * np.pi * f_ring * dt)
     i = i + ring + 0.01 * RECOVERY_CURRENT * rng.standard_normal(i.shape)
+    return i
+
+
+def _recovery_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
+    rng = np.random.default_rng([seed, 6])
+    out = {}
+    sel = p[p["recovery"]].reset_index(drop=True)
+    nd = len(sel)
+    t_text = _fixed((RECOVERY_START + RECOVERY_STEP * np.arange(RECOVERY_SAMPLES)) * 1e9, 1)
+    t = _parsed(t_text)[None, :] * 1e-9
+    i = _recovery_readings(sel, t, rng)
     k = RECOVERY_SAMPLES
     for j, sl in enumerate(_chunks(nd, 25), start=1):
         part = sel.iloc[sl]
@@ -558,8 +586,8 @@ def _truth_file(p: pd.DataFrame, reel: str) -> str:
     return _csv(head, header, cols)
 
 
-def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFAULT_SEED
-               ) -> Path:
+def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFAULT_SEED,
+               layout: str | None = None) -> Path:
     """Write a complete synthetic reel folder.
 
     Parameters
@@ -571,8 +599,14 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
     devices : int
         Number of devices on the reel (at least 20).
     seed : int
-        Seed for ``numpy.random.default_rng``; the same seed and device count give
-        byte-identical files.
+        Seed for ``numpy.random.default_rng``; the same seed, device count and layout
+        give byte-identical files.
+    layout : {"workshop", "batches", "per-part"}, optional
+        ``workshop``: the small reel of mixed instruments described above. ``batches``:
+        every part on every station at production point counts, in batch files of 250
+        part numbers; ``per-part``: the same, one file per part and station (see
+        :mod:`kinset.demo_production`). Default: ``workshop`` up to the default 240
+        devices, ``batches`` above.
 
     Returns
     -------
@@ -589,13 +623,25 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
     seed = int(seed)
     if seed < 0:
         raise ValueError(f"seed must be a non-negative integer (got {seed})")
+    if layout is None:
+        layout = "workshop" if devices <= DEFAULT_DEVICES else "batches"
+    if layout not in LAYOUTS:
+        raise ValueError(f"layout must be one of {', '.join(LAYOUTS)} (got {layout!r})")
     p = demo_parameters(devices, seed)
     reel = f"demo-{seed:04d}"
-    files = {"reel.yaml": _reel_yaml(reel, devices, seed), "truth.csv": _truth_file(p, reel)}
-    files.update(_forward_files(p, seed, reel))
-    files.update(_leakage_files(p, seed, reel))
-    files.update(_capacitance_files(p, seed, reel))
-    files.update(_recovery_files(p, seed, reel))
+    files: dict[str, str] = {}
+    if layout == "workshop":
+        files.update(_forward_files(p, seed, reel))
+        files.update(_leakage_files(p, seed, reel))
+        files.update(_capacitance_files(p, seed, reel))
+        files.update(_recovery_files(p, seed, reel))
+        note = ""
+    else:
+        from kinset.demo_production import production_parameters
+        p = production_parameters(p, seed)
+        note = f"# Layout '{layout}': every part on every station, as a tester exports them.\n"
+    files["reel.yaml"] = _reel_yaml(reel, devices, seed).replace("\nreel:", f"\n{note}reel:", 1)
+    files["truth.csv"] = _truth_file(p, reel)
     existing = out / "reel.yaml"
     if existing.is_file() and not existing.read_bytes().startswith(_YAML_MARK.encode()):
         raise FileExistsError(f"{existing} exists and was not written by kinset demo; "
@@ -607,4 +653,7 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
                 old.unlink()
     for name in sorted(files):
         _write(out / name, files[name])
+    if layout != "workshop":
+        from kinset.demo_production import write_production
+        write_production(out, p, seed, reel, layout)
     return out

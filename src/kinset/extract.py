@@ -213,8 +213,10 @@ def extract_recovery(reel: Reel, files: list[str | Path]) -> Extraction:
     Gives ``recovery.csv``.
     """
     from kinset.fitting.recovery import fit_recovery
-    points = read_inputs("recovery", _inputs(reel, "recovery", files))
-    return _reel_relative(reel, Extraction(fit_recovery(points, recovery_settings(reel))))
+    # One file at a time: a reel's waveforms are the largest input (10,000 parts of 2,000
+    # samples: 20 M rows), and each capture lies within one file.
+    tables = (read_inputs("recovery", [f]) for f in _inputs(reel, "recovery", files))
+    return _reel_relative(reel, Extraction(fit_recovery(tables, recovery_settings(reel))))
 
 
 # Dataset -> its extraction. The CLI's `kinset extract <dataset>` and the workflow's

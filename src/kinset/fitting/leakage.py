@@ -184,9 +184,17 @@ def fit_shunt_generation(idx, k, voltage, current, factor, temperature, sigma):
     def shape(m):
         return factor * generation_shape(voltage, GEN_VJ, m, temperature, GEN_N) / sigma
 
+    # On the grid, the factors of shape(m) that do not depend on M are computed once
+    # (in generation_shape's order of operations, so the numbers are the same), and the
+    # sums over a and y alone too. A loop over the grid, never over devices.
+    width = 1.0 + voltage / GEN_VJ
+    onset = generation_shape(voltage, GEN_VJ, 0.0, temperature, GEN_N)
+    s = lambda x: np.bincount(idx, x, minlength=k)   # noqa: E731
+    saa, say, syy = s(a * a), s(a * y), s(y * y)
     ssr = np.empty((len(M_GRID), k))
-    for g, m in enumerate(M_GRID):      # a loop over the grid, never over devices
-        ssr[g] = _solve_nonnegative(_weighted_sums(idx, k, a, shape(m), y))[1]
+    for g, m in enumerate(M_GRID):
+        b = factor * (width ** m * onset) / sigma
+        ssr[g] = _solve_nonnegative((saa, s(a * b), s(b * b), say, s(b * y), syy))[1]
     best = np.argmin(ssr, axis=0)
     lo = np.clip(best - 1, 0, len(M_GRID) - 3)
     cols = np.arange(k)

@@ -122,12 +122,16 @@ class RecoverySettings:
 def _boxcar(x: np.ndarray, half: np.ndarray) -> np.ndarray:
     """Moving average of each row over ±half[row] samples (shrinking at the ends)."""
     g, n = x.shape
-    c = np.concatenate([np.zeros((g, 1)), np.cumsum(x, axis=1)], axis=1)
-    j = np.arange(n)[None, :]
-    lo = np.clip(j - half[:, None], 0, n)
-    hi = np.clip(j + half[:, None] + 1, 0, n)
-    r = np.arange(g)[:, None]
-    return (c[r, hi] - c[r, lo]) / (hi - lo)
+    c = np.zeros((g, n + 1))
+    np.cumsum(x, axis=1, out=c[:, 1:])
+    out = np.empty_like(c[:, 1:])
+    j = np.arange(n)
+    for h in np.unique(half):       # rows of one width share their window bounds
+        rows = np.flatnonzero(half == h)
+        lo, hi = np.clip(j - h, 0, n), np.clip(j + h + 1, 0, n)
+        block = c[rows]
+        out[rows] = (block[:, hi] - block[:, lo]) / (hi - lo)
+    return out
 
 
 def _noise_gain(half: int) -> float:
@@ -393,6 +397,17 @@ def analyse_waveforms(time: np.ndarray, current: np.ndarray, settings: RecoveryS
 
 # --------------------------------------------------------------------------- the table
 
+def _in_order(*keys) -> bool:
+    """Whether rows are already sorted by keys[0], then keys[1], ... (as lexsort would)."""
+    tied = np.ones(max(len(keys[0]) - 1, 0), dtype=bool)
+    for k in keys:
+        step = np.diff(k)
+        if (tied & (step < 0)).any():
+            return False
+        tied &= step == 0
+    return True
+
+
 def _uniform(t: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool]:
     """The waveform on a uniform grid (resampled linearly when the steps differ)."""
     if len(t) < 3:
@@ -408,20 +423,25 @@ def _uniform(t: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool
     return grid, np.interp(grid, t, i), True
 
 
+# Samples analysed in one stack: each of the analysis' temporaries is this many floats
+# (8 MB), so memory stays flat whatever the reel's size, and the arrays stay in cache.
+STACK_SAMPLES = 1_000_000
+
 RESULT_COLUMNS = ("trr_s", "ta_s", "tb_s", "irrm_A", "qrr_C", "softness", "tt_s", "if_A",
                   "ir_A", "t0_s", "end_level_A", "decay_tau_s", "noise_A")
 
 
-def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFrame:
+def fit_recovery(points, settings: RecoverySettings) -> pd.DataFrame:
     """Recovery parameters of every device in a table of waveform samples.
 
     Parameters
     ----------
-    points : DataFrame
+    points : DataFrame, or an iterable of them
         ``device, time [s], current [A], forward_current [A], reverse_current [A] (NaN:
         from reel.yaml), source, line`` — as from :func:`kinset.io.datasets.read_recovery`.
         One waveform per device and file; a device captured in several files gets
-        the mean of its usable captures.
+        the mean of its usable captures. Tables given one by one (one per file, say)
+        are analysed one at a time, so memory follows the largest file, not the reel.
     settings : RecoverySettings
 
     Returns
@@ -434,12 +454,52 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
         ``end_rule``, and the capture (``samples, sample_period_s, record_start_s,
         record_end_s, captures``).
     """
+    tables = [points] if isinstance(points, pd.DataFrame) else points
+    return _device_table(_concat_captures([_captures(t, settings) for t in tables]), settings)
+
+
+@dataclass
+class _Captures:
+    """Per-capture (device and file) results, sorted by device and file."""
+
+    device: np.ndarray
+    source: np.ndarray
+    res: dict
+    status: np.ndarray
+    notes: list
+    if_set: np.ndarray
+    ir_set: np.ndarray
+    length: np.ndarray
+    dt: np.ndarray
+    t_first: np.ndarray
+    t_final: np.ndarray
+
+
+def _concat_captures(parts: list[_Captures]) -> _Captures:
+    if len(parts) == 1:
+        return parts[0]
+    device = np.concatenate([p.device for p in parts])
+    source = np.concatenate([p.source for p in parts])
+    order = np.lexsort((pd.factorize(source, sort=True)[0], pd.factorize(device, sort=True)[0]))
+    cat = lambda name: np.concatenate([getattr(p, name) for p in parts])[order]  # noqa: E731
+    notes = [n for p in parts for n in p.notes]
+    return _Captures(device[order], source[order],
+                     {k: np.concatenate([p.res[k] for p in parts])[order] for k in RESULT_COLUMNS},
+                     cat("status"), [notes[i] for i in order], cat("if_set"), cat("ir_set"),
+                     cat("length"), cat("dt"), cat("t_first"), cat("t_final"))
+
+
+def _captures(points: pd.DataFrame, settings: RecoverySettings) -> _Captures:
+    """Analyse every capture in one table of samples."""
     s = settings
     dev_codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
-    src_codes, _ = pd.factorize(points["source"].astype(str).to_numpy(), sort=True)
+    src_codes, src_names = pd.factorize(points["source"].astype(str).to_numpy(), sort=True)
     t_all = points["time"].to_numpy(dtype=float)
     i_all = points["current"].to_numpy(dtype=float)
-    order = np.lexsort((t_all, src_codes, dev_codes))
+    # Files list each capture's samples in time order, one device after another: then
+    # the sort is the identity and is skipped.
+    order = slice(None) if _in_order(dev_codes, src_codes, t_all) else \
+        np.lexsort((t_all, src_codes, dev_codes))
     dc, sc, t, cur = dev_codes[order], src_codes[order], t_all[order], i_all[order]
     wave_new = np.ones(len(dc), dtype=bool)
     wave_new[1:] = (dc[1:] != dc[:-1]) | (sc[1:] != sc[:-1])
@@ -456,10 +516,13 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
     t_u, wave_u = t[first], wave[first]
     repeated = np.bincount(wave_u, counts > 1, n_wave)
     wave_dev = dc[np.flatnonzero(wave_new)]
-    wave_src = points["source"].astype(str).to_numpy()[order][np.flatnonzero(wave_new)]
+    wave_src = np.asarray(src_names, dtype=object)[sc[np.flatnonzero(wave_new)]]
 
     def condition(column, default):
-        x = points[column].to_numpy(dtype=float)[order] if column in points else np.full(len(dc), np.nan)
+        x = points[column].to_numpy(dtype=float) if column in points else None
+        if x is None or not np.isfinite(x).any():   # not in the files: reel.yaml's value
+            return np.full(n_wave, default), np.zeros(n_wave, dtype=bool)
+        x = x[order]
         ok = np.isfinite(x)
         val = pd.Series(np.where(ok, x, np.nan)).groupby(wave).median().to_numpy()
         given = np.isfinite(val)
@@ -479,14 +542,16 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
     res = {k: np.full(n_wave, np.nan) for k in RESULT_COLUMNS}
     reject = np.full(n_wave, "", dtype=object)
     warn = np.full(n_wave, "", dtype=object)
-    for n in np.unique(length):     # waveforms of equal length are stacked
-        ids = np.flatnonzero(length == n)
-        tt = np.stack([waves_t[w] for w in ids])
-        ii = np.stack([waves_i[w] for w in ids])
-        a = analyse_waveforms(tt, ii, s)
-        for k in RESULT_COLUMNS:
-            res[k][ids] = a[k]
-        reject[ids], warn[ids] = a["reject"], a["warn"]
+    for n in np.unique(length):     # waveforms of equal length are stacked, a block at a time
+        same = np.flatnonzero(length == n)
+        block = max(1, STACK_SAMPLES // max(int(n), 1))
+        for ids in (same[i:i + block] for i in range(0, len(same), block)):
+            tt = np.stack([waves_t[w] for w in ids])
+            ii = np.stack([waves_i[w] for w in ids])
+            a = analyse_waveforms(tt, ii, s)
+            for k in RESULT_COLUMNS:
+                res[k][ids] = a[k]
+            reject[ids], warn[ids] = a["reject"], a["warn"]
     dt = np.array([(x[-1] - x[0]) / (len(x) - 1) if len(x) > 1 else np.nan for x in waves_t])
     t_first = np.array([x[0] for x in waves_t])
     t_final = np.array([x[-1] for x in waves_t])
@@ -516,54 +581,83 @@ def fit_recovery(points: pd.DataFrame, settings: RecoverySettings) -> pd.DataFra
         if repeated[w]:
             note.append(f"{repeated[w]} repeated time stamp(s) averaged")
 
-    # One row per device: the mean of its usable captures.
-    rows = []
-    for d, name in enumerate(names):
-        ws = np.flatnonzero(wave_dev == d)
-        good = ws[status_w[ws] != "rejected"]
-        row: dict[str, object] = {"device": str(name)}
-        if len(good) == 0:
-            w = ws[0]
-            row["status"] = "rejected"
-            row["note"] = "; ".join(wave_notes[w]) + (
-                f" (all {len(ws)} captures rejected)" if len(ws) > 1 else "")
-            chosen = ws
+    return _Captures(np.asarray(names, dtype=object)[wave_dev], wave_src, res, status_w,
+                     wave_notes, if_set, ir_set, length, dt, t_first, t_final)
+
+
+def _device_table(c: _Captures, settings: RecoverySettings) -> pd.DataFrame:
+    """One row per device from its captures (sorted by device)."""
+    s = settings
+    wave_dev, names = pd.factorize(c.device, sort=True)
+    res, status_w, wave_notes, wave_src = c.res, c.status, c.notes, c.source
+    if_set, ir_set, length, dt, t_first, t_final = (c.if_set, c.ir_set, c.length, c.dt,
+                                                    c.t_first, c.t_final)
+    # One row per device: the mean of its usable captures (waves are sorted by device).
+    n_dev = len(names)
+    good = status_w != "rejected"
+    n_good = np.bincount(wave_dev, good, n_dev)
+    n_all = np.bincount(wave_dev, minlength=n_dev)
+    # The captures a device's conditions come from: its usable ones, or all when none is.
+    chosen = good | (n_good[wave_dev] == 0)
+    n_chosen = np.bincount(wave_dev, chosen, n_dev)
+
+    def mean_of(x, use, count):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.bincount(wave_dev[use], x[use], n_dev) / np.where(count > 0, count, np.nan)
+
+    def extreme(x, pick):
+        out = np.full(n_dev, -np.inf if pick is np.maximum else np.inf)
+        pick.at(out, wave_dev[chosen], x[chosen])
+        return out
+
+    table = {"device": [str(x) for x in names]}
+    status = np.where(n_good == 0, "rejected", "ok").astype(object)
+    status[np.unique(wave_dev[good & (status_w == "warning")])] = "warning"
+    table["status"] = status
+    first_wave = np.searchsorted(wave_dev, np.arange(n_dev))
+    notes = []
+    for d in range(n_dev):
+        w0 = first_wave[d]
+        if n_all[d] == 1:               # the usual case: one capture per device
+            note = "; ".join(dict.fromkeys(wave_notes[w0]))
         else:
-            chosen = good
-            row["status"] = "warning" if (status_w[good] == "warning").any() else "ok"
-            note = []
-            trr = res["trr_s"][good]
-            files = sorted({Path(wave_src[w]).name for w in good})
-            if len(files) > 1 and np.ptp(trr) > CAPTURES_DISAGREE * np.mean(trr):
-                # Captures of one id in several files that do not agree: one id on two parts?
-                row["status"] = "rejected"
-                note.append(f"captures in {len(files)} files ({', '.join(files)}) disagree: trr "
-                            f"{si(np.min(trr), 's')} to {si(np.max(trr), 's')}; one id on two "
-                            f"parts? Check the files")
-            for w in good:
-                note += [x for x in wave_notes[w] if x not in note]
-            if len(ws) > 1:
-                spread = np.ptp(res["trr_s"][good])
-                note.append(f"mean of {len(good)} captures"
-                            + (f" ({len(ws) - len(good)} rejected)" if len(good) < len(ws) else "")
-                            + f", trr spread {si(spread, 's')}")
-            row["note"] = "; ".join(note)
-        for k in RESULT_COLUMNS:
-            row[k] = float(np.mean(res[k][good])) if len(good) else np.nan
-        row["if_set_A"] = float(np.mean(if_set[chosen]))
-        row["ir_set_A"] = float(np.mean(ir_set[chosen]))
-        row["end_rule"] = s.describe()
-        row["samples"] = int(np.sum(length[chosen]))
-        row["sample_period_s"] = float(np.mean(dt[chosen]))
-        row["record_start_s"] = float(np.min(t_first[chosen]))
-        row["record_end_s"] = float(np.max(t_final[chosen]))
-        row["captures"] = len(ws)
-        if len(ws) > 1:
+            ws = np.arange(w0, w0 + n_all[d])
+            ok = ws[good[ws]]
+            if not len(ok):
+                note = "; ".join(wave_notes[w0]) + f" (all {len(ws)} captures rejected)"
+            else:
+                parts: list[str] = []
+                trr = res["trr_s"][ok]
+                files = sorted({Path(wave_src[w]).name for w in ok})
+                if len(files) > 1 and np.ptp(trr) > CAPTURES_DISAGREE * np.mean(trr):
+                    # Captures of one id in several files that do not agree: one id on two
+                    # parts?
+                    status[d] = "rejected"
+                    parts.append(f"captures in {len(files)} files ({', '.join(files)}) disagree: "
+                                 f"trr {si(np.min(trr), 's')} to {si(np.max(trr), 's')}; one id "
+                                 f"on two parts? Check the files")
+                for w in ok:
+                    parts += [x for x in wave_notes[w] if x not in parts]
+                parts.append(f"mean of {len(ok)} captures"
+                             + (f" ({len(ws) - len(ok)} rejected)" if len(ok) < len(ws) else "")
+                             + f", trr spread {si(np.ptp(res['trr_s'][ok]), 's')}")
+                note = "; ".join(parts)
             files = ", ".join(sorted({Path(wave_src[w]).name for w in ws}))
-            row["note"] = "; ".join(x for x in (row["note"], f"files {files}") if x)
-        rows.append(row)
+            note = "; ".join(x for x in (note, f"files {files}") if x)
+        notes.append(note)
+    table["note"] = notes
+    for k in RESULT_COLUMNS:
+        table[k] = mean_of(res[k], good, n_good)
+    table["if_set_A"] = mean_of(if_set, chosen, n_chosen)
+    table["ir_set_A"] = mean_of(ir_set, chosen, n_chosen)
+    table["end_rule"] = s.describe()
+    table["samples"] = np.bincount(wave_dev[chosen], length[chosen], n_dev).astype(np.int64)
+    table["sample_period_s"] = mean_of(dt, chosen, n_chosen)
+    table["record_start_s"] = extreme(t_first, np.minimum)
+    table["record_end_s"] = extreme(t_final, np.maximum)
+    table["captures"] = n_all
     columns = ["device", "status", "note", "trr_s", "ta_s", "tb_s", "irrm_A", "qrr_C",
                "softness", "tt_s", "if_A", "ir_A", "t0_s", "end_level_A", "decay_tau_s",
                "noise_A", "if_set_A", "ir_set_A", "end_rule", "samples", "sample_period_s",
                "record_start_s", "record_end_s", "captures"]
-    return pd.DataFrame(rows, columns=columns)
+    return pd.DataFrame(table, columns=columns)

@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import csv
 import os
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import IO
 
+import numpy as np
 import pandas as pd
 
 
@@ -49,8 +51,44 @@ def write_csv(frame: pd.DataFrame, path: str | Path) -> None:
     The same frame always gives the same bytes, and a reader never sees a
     half-written file (see :func:`atomic_output`).
     """
+    columns = [_text(frame.iloc[:, j]) for j in range(frame.shape[1])]
     with atomic_output(path) as fh:
-        frame.to_csv(fh, index=False, float_format="%.10g", lineterminator="\n")
+        # What pandas' to_csv writes (its csv writer, minimal quoting), made column by
+        # column: pandas formats floats one cell at a time, ~3x slower on big tables.
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow([str(c) for c in frame.columns])
+        if len(columns) == 1:         # a lone empty cell is quoted: leave that to csv
+            w.writerows(zip(*columns))
+        elif len(frame):
+            text = [c if frame.dtypes.iloc[j].kind in "fiub" else _quoted(c)
+                    for j, c in enumerate(columns)]
+            fh.write("\n".join(map(",".join, zip(*text))))
+            fh.write("\n")
+
+
+def _quoted(cells: list[str]) -> list[str]:
+    """Minimal CSV quoting, as the csv module does it (checked once per distinct text)."""
+    special = {c for c in set(cells) if "," in c or '"' in c or "\n" in c}
+    if not special:
+        return cells
+    return ['"' + c.replace('"', '""') + '"' if c in special else c for c in cells]
+
+
+def _text(column: pd.Series) -> list[str]:
+    """A column's cells as pandas' ``to_csv(float_format="%.10g")`` writes them."""
+    v = column.to_numpy()
+    if v.dtype.kind == "f":
+        out = list(map("%.10g".__mod__, v.tolist()))
+        for i in np.flatnonzero(np.isnan(v)):
+            out[i] = ""
+        return out
+    if v.dtype.kind in "iub":
+        return list(map(str, v.tolist()))
+    missing = pd.isna(column).to_numpy()
+    out = [str(x) for x in v.tolist()]
+    for i in np.flatnonzero(missing):
+        out[i] = ""
+    return out
 
 
 def read_result(path: str | Path) -> pd.DataFrame:

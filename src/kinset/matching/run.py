@@ -58,9 +58,22 @@ def _default_accuracy() -> dict:
     return validate({"material": "silicon"}, "reel", "reel.yaml defaults")["accuracy"]
 
 
-def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
-          accuracy: dict | None = None) -> MatchResult:
-    """Form the sets of one application; every device ends in sets or unmatched."""
+@dataclass
+class Candidates:
+    """What set forming starts from: the parts that passed screens and guard bands, with
+    their values (SI) and the values divided by the effective tolerances (``z``)."""
+
+    evaluation: object
+    tolerance: dict
+    devices: np.ndarray
+    raw: np.ndarray
+    z: np.ndarray
+    accuracy_note: str = ""
+
+
+def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
+               accuracy: dict | None = None) -> Candidates:
+    """Evaluate, screen and guard every device; the rest are candidates for sets."""
     accuracy_note = ""
     if accuracy is None:
         accuracy = _default_accuracy()
@@ -74,14 +87,24 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
             ev.reasons[dev].append(
                 f"{d.describe()}: tolerance is within the measurement guard band "
                 f"({_fmt(ev.guards[d.name], d)}); the instruments cannot verify it")
-    candidates = np.asarray([d for d in ev.devices if not ev.reasons[d]], dtype=object)
-    raw = ev.values.loc[candidates, [d.name for d in dims]].to_numpy(dtype=float) \
-        if len(candidates) else np.empty((0, len(dims)))
+    cand = np.asarray([d for d in ev.devices if not ev.reasons[d]], dtype=object)
+    raw = ev.values.loc[cand, [d.name for d in dims]].to_numpy(dtype=float) \
+        if len(cand) else np.empty((0, len(dims)))
     z = np.column_stack([normalise(raw[:, j], d, eff[d.name]) for j, d in enumerate(dims)]) \
-        if len(candidates) else np.empty((0, len(dims)))
+        if len(cand) else np.empty((0, len(dims)))
+    return Candidates(ev, eff, cand, raw, z, accuracy_note)
+
+
+def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
+          accuracy: dict | None = None) -> MatchResult:
+    """Form the sets of one application; every device ends in sets or unmatched."""
+    c = candidates(tables, devices, profile, accuracy)
+    ev, eff, cand, raw, z = c.evaluation, c.tolerance, c.devices, c.raw, c.z
+    accuracy_note = c.accuracy_note
+    dims = profile.dimensions
     weights = np.asarray([d.weight for d in dims])
     k = profile.set_size
-    if len(candidates) >= k:
+    if len(cand) >= k:
         result = form_sets(z, weights, k, profile.settings["goal"])
         found, bound, method, optimal = result.sets, result.upper_bound, result.method, result.optimal
     else:
@@ -97,14 +120,14 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
             row_base[f"{d.name}_spread{_suffix(d)}"] = sp * (100 if d.relative else 1)
             row_base[f"{d.name}_margin{_suffix(d)}"] = (eff[d.name] - sp) * (100 if d.relative else 1)
         for m in members:
-            placed.add(candidates[m])
-            rows.append({"set": s, "device": candidates[m], **{k_: v for k_, v in row_base.items()
+            placed.add(cand[m])
+            rows.append({"set": s, "device": cand[m], **{k_: v for k_, v in row_base.items()
                                                                  if k_ != "set"}})
     sets = pd.DataFrame(rows, columns=["set", "device"] + [c for d in dims for c in (
         f"{d.name}_spread{_suffix(d)}", f"{d.name}_margin{_suffix(d)}")])
 
-    left = [d for d in candidates if d not in placed]
-    neighbours = _neighbour_counts(z, [i for i, d in enumerate(candidates) if d not in placed])
+    left = [d for d in cand if d not in placed]
+    neighbours = _neighbour_counts(z, [i for i, d in enumerate(cand) if d not in placed])
     for dev, nb in zip(left, neighbours):
         if nb + 1 < k:
             ev.reasons[dev].append(f"only {nb} other part(s) within every tolerance, a set needs "
@@ -127,7 +150,7 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
         "method": method,
         "parts_seen": int(len(ev.devices)),
         "parts_with_data": int(len(ev.devices) - counts.get("data", 0)),
-        "parts_passed_screen": int(len(candidates)),
+        "parts_passed_screen": int(len(cand)),
         "parts_used": int(len(placed)),
         "parts_left": {stage: int(n) for stage, n in sorted(counts.items())},
         "guard_band": {d.name: ev.guards[d.name] for d in dims},

@@ -711,16 +711,17 @@ def _interior_point(A):
 
 def _quiet_highs(highspy):
     """A solver instance, keeping the banner its wrapper prints on creation (before any
-    option can be set) out of the tool's standard output."""
+    option can be set) out of the tool's standard output (it goes to a pipe, dropped)."""
     sys.stdout.flush()
     saved = os.dup(1)
+    read_end, write_end = os.pipe()
     try:
-        with open(os.devnull, "wb") as null:
-            os.dup2(null.fileno(), 1)
-            return highspy.Highs()
+        os.dup2(write_end, 1)
+        return highspy.Highs()
     finally:
         os.dup2(saved, 1)
-        os.close(saved)
+        for fd in (saved, write_end, read_end):
+            os.close(fd)
 
 
 def _vstack_csc(A, B):
