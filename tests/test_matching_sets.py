@@ -308,6 +308,28 @@ def test_dense_component_falls_back_to_a_pool_with_a_size_bound():
     assert len(r.sets) == r.upper_bound == 10       # every quad fits: 40 / 4
 
 
+def test_dense_reel_matched_among_nearest_partners_reaches_networkx_count():
+    # Reference library: networkx.max_weight_matching (maximum cardinality) on the
+    # *full* compatibility graph of a reel where tolerances are wide against its spread
+    # (over 64 partners per device), which kinset matches among nearest partners only.
+    rng = np.random.default_rng(5)
+    v = rng.normal(0.0, 1.0, (301, 2)) / 1.2
+    g = nx.Graph()
+    g.add_nodes_from(range(len(v)))
+    cheb = np.abs(v[:, None, :] - v[None, :, :]).max(axis=2)
+    i, j = np.nonzero(np.triu(cheb <= 1.0, 1))
+    assert 2 * len(i) / len(v) > 64                     # the dense path is taken
+    g.add_edges_from(zip(i.tolist(), j.tolist()))
+    best = len(nx.max_weight_matching(g, maxcardinality=True))
+    r = form_sets(v, np.ones(2), 2)
+    check_valid(v, r, len(v))
+    assert "nearest compatible partners" in r.method and not r.cost_optimal
+    assert len(r.sets) == best and r.upper_bound >= best
+    q = form_sets(v, np.ones(2), 4)
+    check_valid(v, q, len(v))
+    assert len(q.sets) <= q.upper_bound <= len(v) // 4
+
+
 def test_degenerate_inputs():
     assert form_sets(np.zeros((0, 2)), [1, 1], 2).sets == []
     r = form_sets(np.array([[0.0], [5.0], [10.0]]), [1.0], 2)
