@@ -553,7 +553,9 @@ def fit_capacitance(points: pd.DataFrame, settings: CapacitanceSettings
                 st = "warning"
                 note.append(f"grading coefficient M = {params[d, 2]:.3g} is outside the "
                             f"usual {M_BOUNDS[0]:g}–{USUAL_M_MAX:g}")
-            cv_files = sorted({Path(src[i]).name for i in range(a, b) if not vna[i]})
+            # (the files are named only for a poor fit, the one note that needs them)
+            cv_files = (sorted({Path(src[i]).name for i in range(a, b) if not vna[i]})
+                        if wrms[d] > POOR_FIT else [])
             if wrms[d] > POOR_FIT and len(cv_files) > 1:
                 # Tables that do not agree with each other: one id on two parts?
                 st = "rejected"
