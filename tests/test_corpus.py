@@ -445,6 +445,13 @@ CASES = [
          Error("reel.yaml", 6, None, "not valid YAML")),
     Case("reel_byte_order_mark", "reel", edit_bytes("reel.yaml", lambda b: b"\xef\xbb\xbf" + b),
          Accepted()),
+    # A misspelt application is caught when the reel is read, with the nearest name.
+    Case("reel_application_typo", "reel",
+         edit("reel.yaml", lambda t: t.replace("audio_clipper_pair]", "audio_cliper_pair]")),
+         Error("reel.yaml", 25, "applications.1", "did you mean 'audio_clipper_pair'?")),
+    Case("reel_application_file_missing", "reel",
+         edit("reel.yaml", lambda t: t.replace("audio_clipper_pair]", "profiles/mine.yaml]")),
+         Error("reel.yaml", 25, "applications.1", "'profiles/mine.yaml' not found in the reel folder")),
     # ---------------------------------------------------------------- application profiles
     Case("profile_unknown_quantity", "profile", put(PROFILE, PROFILE_OK.replace("forward_voltage", "forward_volts")),
          Error(PROFILE, 4, "match.0.quantity", "forward_volts")),

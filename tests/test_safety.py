@@ -32,6 +32,7 @@ from kinset.errors import InputError
 from kinset.io.config import read_yaml
 from kinset.io.reel import load_reel
 from kinset.io.touchstone import read_touchstone, read_vna_index
+from kinset.matching.profile import shipped_profiles
 
 SRC = Path(__file__).resolve().parents[1] / "src" / "kinset"
 
@@ -215,6 +216,8 @@ def test_reel_yaml_application_paths_stay_in_the_reel(tmp_path, item):
 def test_reel_yaml_application_inside_the_reel_is_accepted(tmp_path):
     reel = tmp_path / "reel"
     (reel / "profiles").mkdir(parents=True)
+    (reel / "profiles" / "mine.yaml").write_text(
+        shipped_profiles()["detector_pair"].read_text(encoding="utf-8"), encoding="utf-8")
     (reel / "reel.yaml").write_text("material: silicon\napplications: [detector_pair, "
                                     "profiles/mine.yaml]\n")
     assert load_reel(reel).settings["applications"] == ["detector_pair", "profiles/mine.yaml"]

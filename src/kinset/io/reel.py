@@ -103,6 +103,10 @@ def load_reel(folder: str | Path) -> Reel:
             raise InputError(f"{reason}; keep the profile inside the reel folder, or give it "
                              "with --config application=PATH", path,
                              lines.get(("applications", i)), f"applications.{i}")
+        # A misspelt name is found here, with its line, not when the workflow starts.
+        missing = _missing_profile(item, folder)
+        if missing:
+            raise InputError(missing, path, lines.get(("applications", i)), f"applications.{i}")
     if "reel" not in settings:
         name = folder.resolve().name
         settings["reel"] = name
@@ -110,6 +114,25 @@ def load_reel(folder: str | Path) -> Reel:
         if settings.get(key) is None:
             settings[key] = value
     return Reel(folder=folder, settings=settings)
+
+
+def _missing_profile(item: str, folder: Path) -> str:
+    """Why ``item`` of reel.yaml's ``applications`` names no profile, or ''."""
+    from difflib import get_close_matches
+
+    from kinset.matching.profile import shipped_profiles
+
+    shipped = shipped_profiles()
+    if _is_profile_name(item):
+        if item in shipped:
+            return ""
+        close = get_close_matches(item, sorted(shipped), n=1)
+        hint = f"did you mean '{close[0]}'? " if close else ""
+        return (f"no shipped application profile '{item}': {hint}the shipped ones are "
+                f"{', '.join(sorted(shipped))} (or give a YAML file inside the reel folder)")
+    if not (folder / item).is_file():
+        return f"application profile '{item}' not found in the reel folder"
+    return ""
 
 
 def _is_profile_name(item: str) -> bool:
