@@ -248,7 +248,8 @@ def _fit_rlc(arrays: list) -> dict[str, np.ndarray]:
     for i, a in enumerate(arrays):
         if a[3] is not None:
             sel = band[starts[i]:starts[i] + sizes[i]]
-            open_c[i] = np.median(a[3].imag[sel] / (2 * np.pi * a[0][sel]))
+            if sel.any():                       # no point in the band: no note value
+                open_c[i] = np.median(a[3].imag[sel] / (2 * np.pi * a[0][sel]))
     return {
         "capacitance": c, "capacitance_se": np.abs(se[:, 2] * w_ref) * c ** 2,
         "resistance": p[:, 0], "resistance_se": se[:, 0],
