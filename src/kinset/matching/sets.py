@@ -293,8 +293,9 @@ def form_sets(values, weights, size, goal="most_sets", *,
       :math:`y \\ge 0` on devices and cuts, scaled so that every valid set
       :math:`S` is covered at least once, prove :math:`\\lfloor \\sum y \\rfloor` as an
       upper bound. Sets the relaxation holds above one half (pairwise disjoint) are
-      kept, the rest is filled by a least-degree greedy, and a local search re-packs neighbourhoods of unused devices exactly with HiGHS (growing each
-      neighbourhood while its own relaxation still allows one more set) [5]_. Costs are
+      kept, the rest is filled by a least-degree greedy, and a local search re-packs
+      neighbourhoods of unused devices exactly with HiGHS (growing each neighbourhood
+      while its own relaxation still allows one more set) [5]_. Costs are
       then lowered by count-preserving exchanges (re-splitting two neighbouring sets,
       replacing a member by an unused device).
 
