@@ -9,6 +9,7 @@ from pathlib import Path, PureWindowsPath
 from kinset.errors import InputError
 from kinset.io.config import read_yaml, validate
 from kinset.io.units import ZERO_CELSIUS_K
+from kinset.matching.profile import is_profile_name, resolve_profile
 
 DATASETS = ("forward", "leakage", "capacitance", "recovery")
 
@@ -98,15 +99,17 @@ def load_reel(folder: str | Path) -> Reel:
     for i, item in enumerate(settings.get("applications", [])):
         # A profile named by path travels with the reel: it must be inside it.
         # (Profiles from elsewhere are given on the command line.)
-        reason = "" if _is_profile_name(item) else outside_reel(item, folder, folder)
+        reason = "" if is_profile_name(item) else outside_reel(item, folder, folder)
         if reason:
             raise InputError(f"{reason}; keep the profile inside the reel folder, or give it "
                              "with --config application=PATH", path,
                              lines.get(("applications", i)), f"applications.{i}")
         # A misspelt name is found here, with its line, not when the workflow starts.
-        missing = _missing_profile(item, folder)
-        if missing:
-            raise InputError(missing, path, lines.get(("applications", i)), f"applications.{i}")
+        try:
+            resolve_profile(item, folder, only_base=True)
+        except InputError as e:
+            raise InputError(e.message, path, lines.get(("applications", i)),
+                             f"applications.{i}") from None
     if "reel" not in settings:
         name = folder.resolve().name
         settings["reel"] = name
@@ -114,27 +117,3 @@ def load_reel(folder: str | Path) -> Reel:
         if settings.get(key) is None:
             settings[key] = value
     return Reel(folder=folder, settings=settings)
-
-
-def _missing_profile(item: str, folder: Path) -> str:
-    """Why ``item`` of reel.yaml's ``applications`` names no profile, or ''."""
-    from difflib import get_close_matches
-
-    from kinset.matching.profile import shipped_profiles
-
-    shipped = shipped_profiles()
-    if _is_profile_name(item):
-        if item in shipped:
-            return ""
-        close = get_close_matches(item, sorted(shipped), n=1)
-        hint = f"did you mean '{close[0]}'? " if close else ""
-        return (f"no shipped application profile '{item}': {hint}the shipped ones are "
-                f"{', '.join(sorted(shipped))} (or give a YAML file inside the reel folder)")
-    if not (folder / item).is_file():
-        return f"application profile '{item}' not found in the reel folder"
-    return ""
-
-
-def _is_profile_name(item: str) -> bool:
-    """A bare name (a shipped profile), not a path."""
-    return not item.endswith((".yaml", ".yml")) and "/" not in item and "\\" not in item

@@ -8,6 +8,7 @@ currents is four dimensions), each with a tolerance in SI and a weight.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from difflib import get_close_matches
 from importlib import resources
 from pathlib import Path
 
@@ -108,6 +109,11 @@ def shipped_profiles() -> dict[str, Path]:
     return {Path(str(p)).stem: Path(str(p)) for p in folder.iterdir() if str(p).endswith(".yaml")}
 
 
+def is_profile_name(item: str) -> bool:
+    """A bare name (a shipped profile), not a path."""
+    return not item.endswith((".yaml", ".yml")) and "/" not in item and "\\" not in item
+
+
 def resolve_profile(name_or_path: str, base: Path | None = None, only_base: bool = False) -> Path:
     """Path of a profile given as a shipped name or a YAML path.
 
@@ -123,8 +129,15 @@ def resolve_profile(name_or_path: str, base: Path | None = None, only_base: bool
     for candidate in candidates + ([] if only_base else [p]):
         if candidate.suffix in (".yaml", ".yml") and candidate.is_file():
             return candidate
-    raise InputError(f"no application profile '{name_or_path}': give a YAML file or one of "
-                     f"{', '.join(sorted(shipped))}")
+    names = ", ".join(sorted(shipped))
+    if is_profile_name(name_or_path):
+        close = get_close_matches(name_or_path, sorted(shipped), n=1)
+        hint = f"did you mean '{close[0]}'? " if close else ""
+        raise InputError(f"no shipped application profile '{name_or_path}': {hint}the shipped "
+                         f"ones are {names} (or give a YAML file)")
+    where = " in the reel folder" if only_base else ""
+    raise InputError(f"application profile '{name_or_path}' not found{where}: give a YAML "
+                     f"file or one of {names}")
 
 
 def _unit_factor(unit: str, expected: str, path, line, key) -> float:
