@@ -554,20 +554,19 @@ def fit_capacitance(points: pd.DataFrame, settings: CapacitanceSettings
                 st = "warning"
                 note.append(f"grading coefficient M = {params[d, 2]:.3g} is outside the "
                             f"usual {M_BOUNDS[0]:g}–{USUAL_M_MAX:g}")
-            # (the files are named only for a poor fit, the one note that needs them)
-            cv_files = (sorted({Path(src[i]).name for i in range(a, b) if not vna[i]})
-                        if wrms[d] > POOR_FIT else [])
-            if wrms[d] > POOR_FIT and len(cv_files) > 1:
-                # Tables that do not agree with each other: one id on two parts?
-                st = "rejected"
-                note.insert(0, f"C–V points in {len(cv_files)} files ({', '.join(cv_files)}) "
-                            f"disagree: the fit to all of them is off by {si(rms_f[d], 'F')} "
-                            f"rms, beyond the capacitance accuracy; one id on two parts? "
-                            f"Check the files")
-            elif wrms[d] > POOR_FIT:
-                st = "warning"
-                note.append(f"poor fit: rms residual {si(rms_f[d], 'F')} exceeds the "
-                            f"capacitance accuracy")
+            if wrms[d] > POOR_FIT:
+                cv_files = sorted({Path(src[i]).name for i in range(a, b) if not vna[i]})
+                if len(cv_files) > 1:
+                    # Tables that do not agree with each other: one id on two parts?
+                    st = "rejected"
+                    note.insert(0, f"C–V points in {len(cv_files)} files "
+                                f"({', '.join(cv_files)}) disagree: the fit to all of them is "
+                                f"off by {si(rms_f[d], 'F')} rms, beyond the capacitance "
+                                f"accuracy; one id on two parts? Check the files")
+                else:
+                    st = "warning"
+                    note.append(f"poor fit: rms residual {si(rms_f[d], 'F')} exceeds the "
+                                f"capacitance accuracy")
         if bad_vna:
             if st == "ok":
                 st = "warning"
