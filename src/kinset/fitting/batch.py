@@ -107,3 +107,62 @@ def inverse_diagonal(a: np.ndarray, rcond: float = 1e-13) -> np.ndarray:
     return np.stack(cols, axis=1)
 
 
+
+
+class Groups:
+    """Per-device reductions over points sorted by device (one contiguous block each).
+
+    The one place the fits reduce per device: ``codes`` is each point's device index,
+    non-decreasing, and ``n`` the number of devices (a device may have no point: its
+    reductions give NaN, 0 for counts and sums).
+    """
+
+    def __init__(self, codes: np.ndarray, n: int):
+        self.codes = np.asarray(codes)
+        self.n = n
+        self.counts = np.bincount(self.codes, minlength=n)
+        self.starts = np.concatenate([[0], np.cumsum(self.counts)[:-1]]).astype(np.int64)
+        self._empty = self.counts == 0
+        # reduceat reads one element of an empty block: clip the start into range.
+        self._at = np.minimum(self.starts, max(len(self.codes) - 1, 0))
+
+    def _reduce(self, ufunc, x, empty):
+        x = np.asarray(x)
+        if not len(x):
+            return np.full(self.n, empty, dtype=np.result_type(x.dtype, type(empty)))
+        out = ufunc.reduceat(x, self._at)
+        if self._empty.any():
+            out = np.where(self._empty, empty, out)
+        return out
+
+    def max(self, x):
+        """Largest value per device, NaN ignored (NaN where none)."""
+        return self._reduce(np.fmax, x, np.nan)
+
+    def min(self, x):
+        """Smallest value per device, NaN ignored (NaN where none)."""
+        return self._reduce(np.fmin, x, np.nan)
+
+    def sum(self, x):
+        return self._reduce(np.add, np.asarray(x, dtype=float), 0.0)
+
+    def count(self, mask):
+        return self._reduce(np.add, np.asarray(mask).astype(np.int64), 0)
+
+    def spread(self, x, mask):
+        """max − min of x over the masked points of each device (NaN where none)."""
+        y = np.where(mask, x, np.nan)
+        return self.max(y) - self.min(y)
+
+    def each(self, per_device):
+        """A per-device array spread back onto the points."""
+        return np.asarray(per_device)[self.codes]
+
+    def distinct(self, x, mask):
+        """Number of distinct values of x among the masked points of each device."""
+        sel = np.flatnonzero(mask)
+        order = np.lexsort((x[sel], self.codes[sel]))
+        d, v = self.codes[sel][order], x[sel][order]
+        new = np.ones(len(d), dtype=bool)
+        new[1:] = (d[1:] != d[:-1]) | (v[1:] != v[:-1])
+        return np.bincount(d[new], minlength=self.n)
