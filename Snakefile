@@ -4,6 +4,7 @@
 from snakemake.utils import min_version, validate
 
 from kinset.io.config import schema_path
+from kinset.registry import NAMES
 from kinset.workflow import BUCKET_PATTERN, make_plan
 
 min_version("8.0")
@@ -13,7 +14,7 @@ PLAN = make_plan(config)
 OUT = str(PLAN.out)
 
 wildcard_constraints:
-    dataset="forward|leakage|capacitance|recovery",
+    dataset="|".join(NAMES),
     bucket=BUCKET_PATTERN,
     application=BUCKET_PATTERN,
 

@@ -49,7 +49,8 @@ from forward_extract import curve_fit_points  # noqa: E402  (the per-part loop, 
 from kinset.demo import demo_parameters  # noqa: E402
 from kinset.demo_production import (BATCH_PARTS, forward_files,  # noqa: E402
                                     production_parameters, write_production)
-from kinset.extract import EXTRACTORS, forward_settings  # noqa: E402
+from kinset.extract import forward_settings  # noqa: E402
+from kinset.registry import NAMES  # noqa: E402
 from kinset.io.reel import load_reel  # noqa: E402
 from kinset.matching.profile import load_profile  # noqa: E402
 from kinset.matching.run import candidates, read_results  # noqa: E402
@@ -201,18 +202,18 @@ def bench(devices: int, work: Path, sample: int) -> dict:
     run(kinset("demo", "--out", tiny, "--devices", 20, "--seed", SEED, "--layout", "batches"),
         logs / "demo_tiny.log")
     m["fixed"] = {d: min(run(kinset("extract", d, "--reel", tiny, "-o", work / "tiny" / f"{d}.csv"),
-                             logs / f"tiny_{d}.log")[0] for _ in range(3)) for d in EXTRACTORS}
-    m["files"] = {d: len(load_reel(reel).dataset_files(d)) for d in EXTRACTORS}
+                             logs / f"tiny_{d}.log")[0] for _ in range(3)) for d in NAMES}
+    m["files"] = {d: len(load_reel(reel).dataset_files(d)) for d in NAMES}
     m["files"]["touchstone"] = len(list((reel / "capacitance").glob("*.s1p")))
     m["size_MB"] = sum(f.stat().st_size for f in reel.rglob("*") if f.is_file()) / 1e6
-    for d in EXTRACTORS:
+    for d in NAMES:
         m[f"extract {d}"] = run(kinset("extract", d, "--reel", reel, "-o", steps / f"{d}.csv"),
                                 logs / f"extract_{d}.log")
         m[f"raw {d}"] = raw_read(reel, d)
         print(f"  {devices}: extract {d} {m[f'extract {d}'][0]:.1f} s", file=sys.stderr)
     run(kinset("check-reel", "--reel", reel, "-o", steps / "reel.json"), logs / "reel.log")
     m["devices step"] = run(kinset("devices", "-o", steps / "devices.csv",
-                                   *[steps / f"{d}.csv" for d in EXTRACTORS]),
+                                   *[steps / f"{d}.csv" for d in NAMES]),
                             logs / "devices.log")
     apps = load_reel(reel).settings["applications"]
     m["applications"] = apps
@@ -293,7 +294,7 @@ def table(results: list[dict]) -> str:
          f"{r['files']['recovery']}/{r['files']['touchstone']}, {r['size_MB']:.0f} MB"
          for r in results])
     row("`kinset demo` (writing the reel)", wall_mem("demo"))
-    for d in EXTRACTORS:
+    for d in NAMES:
         row(f"`kinset extract {d}` (raw files)", wall_mem(f"extract {d}"))
         row("&nbsp;&nbsp;fixed cost (the same step on 20 parts)",
             [_s(r["fixed"][d]) for r in results])

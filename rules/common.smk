@@ -1,7 +1,12 @@
 # Helpers shared by the rules (input functions); the plan itself lives in kinset.workflow.
 import os
 
-from kinset.workflow import PYTHON, VERSION
+from kinset.workflow import VERSION, rule_python
+
+# The interpreter a rule's command runs: with --sdm conda, the one of the rule's conda
+# environment (envs/kinset.yaml, activated by Snakemake: plain "python"); otherwise the
+# interpreter running Snakemake, which has kinset installed even when no venv is active.
+PYTHON = rule_python(workflow.deployment_settings.deployment_method)
 
 
 def reel_folder(wildcards, input):

@@ -6,11 +6,14 @@ rule match:
     input:
         devices=f"{OUT}/devices.csv",
         reel=f"{OUT}/reel.json",
-        tables=[f"{OUT}/{d}.csv" for d in PLAN.datasets],
+        # every extraction table, side tables too: quantities fall back on them
+        # (single forward readings, measured capacitance points)
+        tables=PLAN.tables(),
         profile=application_profile,
     output:
         sets=f"{OUT}/{{application}}/sets.csv",
         unmatched=f"{OUT}/{{application}}/unmatched.csv",
+        values=f"{OUT}/{{application}}/values.csv",
         summary=f"{OUT}/{{application}}/summary.json",
     log:
         f"{OUT}/logs/match/{{application}}.log",

@@ -7,10 +7,11 @@ rule report:
     input:
         sets=f"{OUT}/{{application}}/sets.csv",
         unmatched=f"{OUT}/{{application}}/unmatched.csv",
+        values=f"{OUT}/{{application}}/values.csv",
         summary=f"{OUT}/{{application}}/summary.json",
         devices=f"{OUT}/devices.csv",
         reel=f"{OUT}/reel.json",
-        tables=PLAN.report_tables(),
+        tables=PLAN.tables(),
         profile=application_profile,
     output:
         page=report(

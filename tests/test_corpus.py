@@ -36,7 +36,7 @@ import pytest
 
 from kinset.demo import write_demo
 from kinset.errors import InputError
-from kinset.extract import EXTRACTORS
+from kinset.registry import dataset as dataset_record
 from kinset.io.reel import load_reel
 from kinset.io.tables import MAX_ID_LENGTH
 from kinset.io.touchstone import read_vna_index
@@ -496,7 +496,7 @@ _CLEAN: dict[str, pd.DataFrame] = {}
 
 def clean_table(demo: Path, dataset: str) -> pd.DataFrame:
     if dataset not in _CLEAN:
-        _CLEAN[dataset] = EXTRACTORS[dataset](load_reel(demo), []).table
+        _CLEAN[dataset] = dataset_record(dataset).extract(load_reel(demo), []).table
     return _CLEAN[dataset]
 
 
@@ -507,7 +507,7 @@ def _run(case: Case, reel: Path):
         return load_profile(str(reel / PROFILE))
     if case.target == "index":
         return read_vna_index(reel / "capacitance" / "index.csv")
-    return EXTRACTORS[case.target](load_reel(reel), [])
+    return dataset_record(case.target).extract(load_reel(reel), [])
 
 
 def test_corpus_is_large_and_covers_every_input():

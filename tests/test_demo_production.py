@@ -18,7 +18,7 @@ import skrf
 from kinset.cli import main
 from kinset.demo_production import (BATCH_PARTS, FORWARD_CURRENTS, LEAKAGE_VOLTAGES,
                                     RECOVERY_SAMPLES)
-from kinset.io.datasets import READERS
+from kinset.registry import dataset as dataset_record
 from kinset.io.reel import load_reel
 from kinset.workflow import make_plan
 
@@ -88,7 +88,7 @@ def test_layouts_hold_the_same_readings_cut_per_batch_or_per_part(reels):
         pd.testing.assert_frame_equal(a, b)
         # kinset's reader sees what pandas sees, in SI.
         one = sorted((reels["per-part"] / dataset).glob("*.csv"))[0]
-        assert READERS[dataset](one)["device"].nunique() == 1
+        assert dataset_record(dataset).read(one)["device"].nunique() == 1
 
 
 def test_per_part_reel_gathers_files_into_stable_buckets(reels, tmp_path):

@@ -7,7 +7,8 @@ import pytest
 
 from kinset.errors import InputError
 from kinset.matching.criteria import _accuracy_bound
-from kinset.matching.profile import load_profile, shipped_profiles
+from kinset.io.profiles import shipped_profiles
+from kinset.matching.profile import load_profile
 
 SIX = {"ring_mixer_quad", "detector_pair", "audio_clipper_pair", "germanium_clipper_pair",
        "varactor_tracking_pair", "sampling_bridge_quad"}

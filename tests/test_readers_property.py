@@ -20,7 +20,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from kinset.errors import InputError
-from kinset.extract import EXTRACTORS
+from kinset.registry import dataset as dataset_record
 from kinset.io.datasets import (read_capacitance, read_capacitance_index, read_forward,
                                 read_leakage, read_recovery)
 from kinset.io.reel import load_reel
@@ -117,13 +117,13 @@ def _load(kind: str, data: bytes, root: Path, extract: bool):
     if kind == "touchstone":
         (reel / "capacitance" / "a.s1p").write_bytes(data)
         if extract:
-            return EXTRACTORS["capacitance"](load_reel(reel), [reel / "capacitance" / "index.csv"])
+            return dataset_record("capacitance").extract(load_reel(reel), [reel / "capacitance" / "index.csv"])
         return read_touchstone(reel / "capacitance" / "a.s1p")
     if kind == "index":
         path = reel / "capacitance" / "index.csv"
         path.write_bytes(data)
         if extract:
-            return EXTRACTORS["capacitance"](load_reel(reel), [path])
+            return dataset_record("capacitance").extract(load_reel(reel), [path])
         read_capacitance_index(path)
         return read_vna_index(path)
     dataset = "forward" if kind.startswith("forward") else kind
@@ -131,7 +131,7 @@ def _load(kind: str, data: bytes, root: Path, extract: bool):
     path.parent.mkdir(exist_ok=True)
     path.write_bytes(data)
     if extract:
-        return EXTRACTORS[dataset](load_reel(reel), [path])
+        return dataset_record(dataset).extract(load_reel(reel), [path])
     return {"forward": read_forward, "leakage": read_leakage, "capacitance": read_capacitance,
             "recovery": read_recovery}[dataset](path)
 

@@ -32,7 +32,7 @@ from kinset.errors import InputError
 from kinset.io.config import read_yaml
 from kinset.io.reel import load_reel
 from kinset.io.touchstone import read_touchstone, read_vna_index
-from kinset.matching.profile import shipped_profiles
+from kinset.io.profiles import shipped_profiles
 
 SRC = Path(__file__).resolve().parents[1] / "src" / "kinset"
 

@@ -8,13 +8,12 @@ from pathlib import Path
 
 from kinset import __version__
 from kinset.errors import InputError
-# Only the dataset names here: each command imports what it needs, so that a workflow
-# job that only parses files does not pay for importing the fits (~0.4 s per job).
-from kinset.io.reel import DATASETS
+# Only the dataset records here (they import nothing heavy): each command imports what it
+# needs, so that a job that only parses files does not pay for importing the fits.
+from kinset.registry import DATASETS, dataset
 
 
 def _cmd_parse(args) -> None:
-    from kinset.io.datasets import READERS
     from kinset.io.parsed import save_parsed
     import pandas as pd
     if args.dataset == "capacitance_vna":   # index.csv -> one capacitance point per Touchstone file
@@ -22,16 +21,15 @@ def _cmd_parse(args) -> None:
         save_parsed(pd.concat([capacitance_vna_points(f, devices=args.devices) for f in args.files],
                               ignore_index=True), args.output)
         return
-    frames = [READERS[args.dataset](f) for f in args.files]
+    frames = [dataset(args.dataset).read(f) for f in args.files]
     save_parsed(pd.concat(frames, ignore_index=True), args.output)
 
 
 def _cmd_extract(args) -> None:
-    from kinset.extract import EXTRACTORS
     from kinset.io.output import write_csv
     from kinset.io.reel import load_reel
     reel = load_reel(args.reel)
-    result = EXTRACTORS[args.dataset](reel, args.files)
+    result = dataset(args.dataset).extract(reel, args.files)
     out = Path(args.output)
     write_csv(result.table, out)
     for name, extra in result.extras.items():
@@ -106,8 +104,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     e = sub.add_parser("extract", help="fit one dataset's model to every device")
     kinds = e.add_subparsers(dest="dataset", required=True)
-    for dataset in DATASETS:
-        k = kinds.add_parser(dataset, help=f"extract the {dataset} dataset")
+    for record in DATASETS:
+        k = kinds.add_parser(record.name, help=f"extract the {record.label} dataset")
         k.add_argument("--reel", required=True, help="reel folder (with reel.yaml)")
         k.add_argument("-o", "--output", required=True, help="output table (CSV); side "
                        "tables such as the forward readings go beside it as <stem>_<name>.csv")
@@ -116,8 +114,7 @@ def build_parser() -> argparse.ArgumentParser:
         k.set_defaults(func=_cmd_extract)
 
     r = sub.add_parser("parse", help="read input files into SI arrays (a workflow step)")
-    r.add_argument("dataset", choices=["forward", "leakage", "capacitance", "recovery",
-                                       "capacitance_vna"],
+    r.add_argument("dataset", choices=[d.name for d in DATASETS] + ["capacitance_vna"],
                    help="capacitance_vna: FILES is capacitance/index.csv; each Touchstone "
                    "file it lists becomes one capacitance point")
     r.add_argument("-o", "--output", required=True, help="output .npz")

@@ -9,7 +9,6 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
 
 import pandas as pd
 
@@ -17,19 +16,6 @@ from kinset.errors import InputError
 from kinset.fitting.forward import ForwardSettings, fit_forward
 from kinset.io.parsed import read_inputs
 from kinset.io.reel import Reel
-
-# Settings of reel.yaml each extraction depends on (the workflow reruns a step
-# only when these change, not when an unrelated key such as 'part' is edited).
-SETTINGS_USED = {
-    "forward": ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV",
-                "xti", "thermal_resistance_K_per_W", "self_heating"),
-    "capacitance": ("reference_temperature_C", "ambient_temperature_C", "accuracy", "capacitance"),
-    "leakage": ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
-                "accuracy", "leakage"),
-    "recovery": ("recovery",),
-}
-
-
 
 @dataclass
 class Extraction:
@@ -217,13 +203,3 @@ def extract_recovery(reel: Reel, files: list[str | Path]) -> Extraction:
     # samples: 20 M rows), and each capture lies within one file.
     tables = (read_inputs("recovery", [f]) for f in _inputs(reel, "recovery", files))
     return _reel_relative(reel, Extraction(fit_recovery(tables, recovery_settings(reel))))
-
-
-# Dataset -> its extraction. The CLI's `kinset extract <dataset>` and the workflow's
-# datasets come from here; SETTINGS_USED above names the reel keys each one reads.
-EXTRACTORS: dict[str, Callable[[Reel, list], Extraction]] = {
-    "forward": extract_forward,
-    "capacitance": extract_capacitance,
-    "leakage": extract_leakage,
-    "recovery": extract_recovery,
-}

@@ -4,8 +4,7 @@ from __future__ import annotations
 
 import math
 
-_PREFIX = [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "\u00b5"),
-           (1e-9, "n"), (1e-12, "p"), (1e-15, "f")]
+from kinset.si import display_prefix
 
 
 def si(value: float, unit: str, digits: int = 3) -> str:
@@ -14,8 +13,5 @@ def si(value: float, unit: str, digits: int = 3) -> str:
         return "n/a"
     if value == 0:
         return f"0 {unit}"
-    mag = abs(value)
-    for factor, prefix in _PREFIX:
-        if mag >= factor * 0.9995:
-            break
+    factor, prefix = display_prefix(abs(value))
     return f"{value / factor:.{digits}g} {prefix}{unit}"

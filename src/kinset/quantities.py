@@ -8,11 +8,13 @@ outside what was measured is refused with a reason, never extrapolated.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 import pandas as pd
 
 from kinset.format import si
+from kinset.outcomes import Catalogue, Note, first_clause
 from kinset.physics.constants import ZERO_CELSIUS
 from kinset.physics.forward import (forward_voltage_tempco as _tempco,
                                     saturation_current_at, voltage_from_current)
@@ -24,16 +26,74 @@ READING_TEMPERATURE_K = 0.5   # [K] a reading serves only at its own temperature
 RANGE_SLACK = 1e-6            # relative slack on the measured current range (rounding)
 
 
+# Why a value is refused: a code for programs, a sentence for people. "note" fields quote
+# the dataset table's own note (its first clause where the sentence goes on).
+REFUSALS = Catalogue("quantities", [
+    Note("outside_range", "rejected", "{condition} is outside the measured {what} range {low}–{high}"),
+    Note("above_breakdown", "rejected", "{condition} is above {high}, where the leakage model ends "
+         "and breakdown begins (readings up to {top})"),
+    Note("data_rejected", "rejected", "{dataset}data rejected: {note}"),
+    Note("no_model", "rejected", "{note}"),
+    Note("no_value", "rejected", "no {label}"),
+    Note("no_value_noted", "rejected", "no {label} ({note})"),
+    Note("no_reading", "rejected", "{note}; no reading at {condition} and {temperature}"),
+    Note("no_point", "rejected", "{note}; no point measured at {condition}"),
+    Note("no_slope", "rejected", "{note}; a temperature coefficient needs a fitted curve"),
+])
+
+
 @dataclass
 class Evaluated:
-    """Values per device (NaN where refused) and the reason for each refusal ('' if none)."""
+    """Values per device (NaN where refused), the reason for each refusal ('' if none) and
+    its code (:data:`REFUSALS`; '' if none)."""
 
     device: np.ndarray
     value: np.ndarray
     reason: np.ndarray
+    code: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        if self.code is None:
+            self.code = np.full(len(self.device), "", dtype=object)
+
+    def refuse(self, i: int, code: str, **fields) -> None:
+        """Refuse device ``i`` with ``code`` (its value becomes NaN)."""
+        self.value[i] = np.nan
+        self.code[i] = code
+        self.reason[i] = REFUSALS.text(code, **fields)
+
+    def serve(self, i: int, value: float) -> None:
+        """Give device ``i`` a value (clearing an earlier refusal)."""
+        self.value[i] = value
+        self.code[i] = ""
+        self.reason[i] = ""
 
     def frame(self, name: str) -> pd.DataFrame:
         return pd.DataFrame({"device": self.device, name: self.value, f"{name}_reason": self.reason})
+
+
+def _empty(devices: pd.DataFrame) -> Evaluated:
+    n = len(devices)
+    return Evaluated(devices["device"].astype(str).to_numpy(dtype=object), np.full(n, np.nan),
+                     np.full(n, "", dtype=object), np.full(n, "", dtype=object))
+
+
+def _unfitted(ev: Evaluated, devices: pd.DataFrame, rows, dataset: str, fallback: str,
+              whole_note: bool = False) -> None:
+    """Refuse ``rows`` that have no usable fit: the row was rejected, or the fit is missing.
+
+    The reason quotes the first clause of the row's note (the whole note of a rejected
+    row with ``whole_note``), or ``fallback`` when the note is empty.
+    """
+    status = devices["status"].astype(str).to_numpy()
+    note = devices["note"].fillna("").astype(str).to_numpy()
+    prefix = f"{dataset} " if dataset else ""
+    for i in rows:
+        if status[i] == "rejected":
+            ev.refuse(i, "data_rejected", dataset=prefix,
+                      note=note[i] if whole_note else first_clause(note[i]))
+        else:
+            ev.refuse(i, "no_model", note=first_clause(note[i]) or fallback)
 
 
 def _fitted(devices: pd.DataFrame) -> np.ndarray:
@@ -41,23 +101,23 @@ def _fitted(devices: pd.DataFrame) -> np.ndarray:
     return np.isfinite(cols).all(axis=1) & (devices["status"].to_numpy() != "rejected")
 
 
-def _range_reasons(devices: pd.DataFrame, current: float) -> np.ndarray:
+def _outside_forward_range(ev: Evaluated, devices: pd.DataFrame, current: float) -> np.ndarray:
+    """Refuse devices whose measured current range does not hold ``current``; the mask of those inside."""
     lo = devices["i_min_A"].to_numpy(dtype=float)
     hi = devices["i_max_A"].to_numpy(dtype=float)
     inside = (current >= lo * (1 - RANGE_SLACK)) & (current <= hi * (1 + RANGE_SLACK))
-    out = np.full(len(devices), "", dtype=object)
     for i in np.flatnonzero(~inside):
-        out[i] = (f"{si(current, 'A')} is outside the measured forward range "
-                  f"{si(lo[i], 'A')}–{si(hi[i], 'A')}")
-    return out
+        ev.refuse(i, "outside_range", condition=si(current, "A"), what="forward",
+                  low=si(lo[i], "A"), high=si(hi[i], "A"))
+    return inside
 
 
-def _no_model_reason(devices: pd.DataFrame, i: int) -> str:
-    status = devices["status"].iloc[i]
-    note = str(devices["note"].iloc[i] or "")
-    if status == "rejected":
-        return f"forward data rejected: {note}"
-    return note.split("; ")[0] or "no fitted forward model"
+def _forward_law(devices: pd.DataFrame, rows: np.ndarray, temperature: float):
+    """(IS at ``temperature``, N, RS, reference temperature [K], EG, XTI) of the given rows."""
+    d = devices[rows]
+    t0 = d["reference_temperature_C"].to_numpy(float) + ZERO_CELSIUS
+    return (d["is_A"].to_numpy(float), d["n"].to_numpy(float), d["rs_ohm"].to_numpy(float), t0,
+            d["eg_eV"].to_numpy(float), d["xti"].to_numpy(float))
 
 
 def forward_voltage(devices: pd.DataFrame, current: float, temperature: float,
@@ -82,26 +142,22 @@ def forward_voltage(devices: pd.DataFrame, current: float, temperature: float,
     Evaluated
         Voltage [V] per device, NaN with a reason where refused.
     """
-    n_dev = len(devices)
-    value = np.full(n_dev, np.nan)
+    ev = _empty(devices)
     fitted = _fitted(devices)
-    reason = _range_reasons(devices, current)
+    inside = _outside_forward_range(ev, devices, current)
     if fitted.any():
-        d = devices[fitted]
-        t0 = d["reference_temperature_C"].to_numpy(float) + ZERO_CELSIUS
-        n = d["n"].to_numpy(float)
-        i_s = saturation_current_at(d["is_A"].to_numpy(float), temperature, t0, n,
-                                    d["eg_eV"].to_numpy(float), d["xti"].to_numpy(float))
-        v = voltage_from_current(current, i_s, n, d["rs_ohm"].to_numpy(float), temperature)
-        value[fitted] = np.where(reason[fitted] == "", v, np.nan)
-    for i in np.flatnonzero(~fitted):
-        reason[i] = _no_model_reason(devices, i)
+        i_s0, n, rs, t0, eg, xti = _forward_law(devices, fitted, temperature)
+        i_s = saturation_current_at(i_s0, temperature, t0, n, eg, xti)
+        v = voltage_from_current(current, i_s, n, rs, temperature)
+        ev.value[fitted] = np.where(inside[fitted], v, np.nan)
+    _unfitted(ev, devices, np.flatnonzero(~fitted), "forward", "no fitted forward model",
+              whole_note=True)
     if readings is not None and (~fitted).any():
-        _serve_readings(devices, readings, current, temperature, fitted, value, reason)
-    return Evaluated(devices["device"].to_numpy(dtype=object), value, reason)
+        _serve_readings(devices, readings, current, temperature, fitted, ev)
+    return ev
 
 
-def _serve_readings(devices, readings, current, temperature, fitted, value, reason):
+def _serve_readings(devices, readings, current, temperature, fitted, ev: Evaluated):
     """Fill unfitted devices from readings taken at the requested condition."""
     want = set(devices["device"].to_numpy()[~fitted & (devices["status"] != "rejected").to_numpy()])
     r = readings[readings["device"].isin(want) & (readings["used"] == 1)]
@@ -111,13 +167,11 @@ def _serve_readings(devices, readings, current, temperature, fitted, value, reas
     served = r[close].groupby("device")["voltage_V"].mean()
     index = {d: i for i, d in enumerate(devices["device"].to_numpy())}
     for dev, v in served.items():
-        i = index[dev]
-        value[i] = v
-        reason[i] = ""
+        ev.serve(index[dev], v)
     for dev in want - set(served.index):
         i = index[dev]
-        reason[i] = (f"{_no_model_reason(devices, i)}; no reading at {si(current, 'A')} and "
-                     f"{temperature - ZERO_CELSIUS:.3g} °C")
+        ev.refuse(i, "no_reading", note=ev.reason[i], condition=si(current, "A"),
+                  temperature=f"{temperature - ZERO_CELSIUS:.3g} °C")
 
 
 def forward_voltage_tempco(devices: pd.DataFrame, current: float,
@@ -131,38 +185,40 @@ def forward_voltage_tempco(devices: pd.DataFrame, current: float,
     Evaluated
         dV/dT [V/K] per device, NaN with a reason where refused.
     """
-    n_dev = len(devices)
-    value = np.full(n_dev, np.nan)
+    ev = _empty(devices)
     fitted = _fitted(devices)
-    reason = _range_reasons(devices, current)
+    inside = _outside_forward_range(ev, devices, current)
     if fitted.any():
-        d = devices[fitted]
-        t0 = d["reference_temperature_C"].to_numpy(float) + ZERO_CELSIUS
-        g = _tempco(current, d["is_A"].to_numpy(float), d["n"].to_numpy(float),
-                    d["rs_ohm"].to_numpy(float), temperature, t0,
-                    d["eg_eV"].to_numpy(float), d["xti"].to_numpy(float))
-        value[fitted] = np.where(reason[fitted] == "", g, np.nan)
-    for i in np.flatnonzero(~fitted):
-        reason[i] = _no_model_reason(devices, i) + "; a temperature coefficient needs a fitted curve"
-    return Evaluated(devices["device"].to_numpy(dtype=object), value, reason)
+        i_s0, n, rs, t0, eg, xti = _forward_law(devices, fitted, temperature)
+        g = _tempco(current, i_s0, n, rs, temperature, t0, eg, xti)
+        ev.value[fitted] = np.where(inside[fitted], g, np.nan)
+    unfitted = np.flatnonzero(~fitted)
+    _unfitted(ev, devices, unfitted, "forward", "no fitted forward model", whole_note=True)
+    for i in unfitted:
+        ev.refuse(i, "no_slope", note=ev.reason[i])
+    return ev
 
 
 def column_value(table: pd.DataFrame, column: str, label: str) -> Evaluated:
     """A quantity that is a column of an extraction table (N, RS, trr, Qrr, Irrm).
 
-    Devices whose row is rejected, or whose value is missing, get the table's note
-    as the reason.
+    Devices whose row is rejected, or whose value is missing, get the first clause of
+    the table's note as the reason.
     """
+    ev = _empty(table)
     values = table[column].to_numpy(dtype=float) if column in table else np.full(len(table), np.nan)
     status = table["status"].to_numpy()
     note = table["note"].fillna("").astype(str).to_numpy()
-    reason = np.full(len(table), "", dtype=object)
+    ev.value[:] = values
     for i in np.flatnonzero(~np.isfinite(values) | (status == "rejected")):
-        first = note[i].split("; ")[0]
-        reason[i] = (f"data rejected: {first}" if status[i] == "rejected"
-                     else f"no {label} ({first})" if first else f"no {label}")
-    values = np.where(reason == "", values, np.nan)
-    return Evaluated(table["device"].astype(str).to_numpy(dtype=object), values, reason)
+        first = first_clause(note[i])
+        if status[i] == "rejected":
+            ev.refuse(i, "data_rejected", dataset="", note=first)
+        elif first:
+            ev.refuse(i, "no_value_noted", label=label, note=first)
+        else:
+            ev.refuse(i, "no_value", label=label)
+    return ev
 
 
 # --------------------------------------------------------------------------- capacitance
@@ -195,13 +251,10 @@ def capacitance(devices: pd.DataFrame, reverse_voltage: float,
     """
     from kinset.physics.capacitance import junction_capacitance
 
+    ev = _empty(devices)
     n = len(devices)
     vr = float(reverse_voltage)
-    value = np.full(n, np.nan)
-    reason = np.full(n, "", dtype=object)
-    names = devices["device"].astype(str).to_numpy(dtype=object)
     status = devices["status"].astype(str).to_numpy()
-    note = devices["note"].fillna("").astype(str).to_numpy()
     law = devices[["cj0_F", "vj_V", "m"]].to_numpy(dtype=float)
     cp = devices["cp_F"].to_numpy(dtype=float) if "cp_F" in devices else np.zeros(n)
     cp = np.where(np.isfinite(cp), cp, 0.0)
@@ -211,26 +264,22 @@ def capacitance(devices: pd.DataFrame, reverse_voltage: float,
     inside = (vr >= lo - CAPACITANCE_BIAS_SLACK_V) & (vr <= hi + CAPACITANCE_BIAS_SLACK_V)
     ok = fitted & inside
     if ok.any():
-        value[ok] = junction_capacitance(vr, law[ok, 0], law[ok, 1], law[ok, 2]) + cp[ok]
+        ev.value[ok] = junction_capacitance(vr, law[ok, 0], law[ok, 1], law[ok, 2]) + cp[ok]
     for i in np.flatnonzero(fitted & ~inside):
-        reason[i] = (f"{vr:g} V is outside the measured reverse-bias range "
-                     f"{lo[i]:g}–{hi[i]:g} V")
-    for i in np.flatnonzero(~fitted):
-        first = note[i].split("; ")[0]
-        reason[i] = (f"capacitance data rejected: {first}" if status[i] == "rejected"
-                     else first or "no fitted capacitance law")
+        ev.refuse(i, "outside_range", condition=f"{vr:g} V", what="reverse-bias",
+                  low=f"{lo[i]:g}", high=f"{hi[i]:g} V")
+    _unfitted(ev, devices, np.flatnonzero(~fitted), "capacitance", "no fitted capacitance law")
     want = ~fitted & (status != "rejected")
     if points is not None and want.any():
         p = points[points["used"].astype(int) == 1]
         p = p[np.abs(p["reverse_voltage_V"].to_numpy(dtype=float) - vr) <= CAPACITANCE_READING_V]
         served = p.groupby(p["device"].astype(str))["capacitance_F"].mean()
         for i in np.flatnonzero(want):
-            if names[i] in served.index:
-                value[i] = served[names[i]]
-                reason[i] = ""
+            if ev.device[i] in served.index:
+                ev.serve(i, served[ev.device[i]])
             else:
-                reason[i] += f"; no point measured at {vr:g} V"
-    return Evaluated(names, value, reason)
+                ev.refuse(i, "no_point", note=ev.reason[i], condition=f"{vr:g} V")
+    return ev
 
 
 LEAKAGE_VOLTAGE_SLACK = 1e-6   # relative slack on the modelled reverse-voltage range (rounding)
@@ -260,15 +309,11 @@ def reverse_current(devices: pd.DataFrame, reverse_voltage: float,
         ``model_max_V``; breakdown above it), never extrapolated.
     """
     from kinset.physics.leakage import leakage_temperature_factor
-    from kinset.physics.leakage import reverse_current as _reverse_current
+    from kinset.physics.leakage import reverse_current as leakage_current
 
-    n = len(devices)
+    ev = _empty(devices)
     vr = float(reverse_voltage)
-    value = np.full(n, np.nan)
-    reason = np.full(n, "", dtype=object)
-    names = devices["device"].astype(str).to_numpy(dtype=object)
     status = devices["status"].astype(str).to_numpy()
-    note = devices["note"].fillna("").astype(str).to_numpy()
     col = lambda c: devices[c].to_numpy(dtype=float)   # noqa: E731
     rsh, igen = col("rsh_ohm"), col("igen_A")
     m = np.where(np.isfinite(col("gen_m")), col("gen_m"), 0.0)   # no generation part: any M
@@ -280,17 +325,78 @@ def reverse_current(devices: pd.DataFrame, reverse_voltage: float,
         t0 = col("reference_temperature_C")[ok] + ZERO_CELSIUS
         f = leakage_temperature_factor(temperature, t0, col("law_eg_eV")[ok],
                                        col("law_xti")[ok], col("law_n")[ok])
-        value[ok] = _reverse_current(vr, rsh[ok], igen[ok] * f, col("gen_vj_V")[ok], m[ok],
-                                     temperature, col("gen_n")[ok])
+        ev.value[ok] = leakage_current(vr, rsh[ok], igen[ok] * f, col("gen_vj_V")[ok], m[ok],
+                                       temperature, col("gen_n")[ok])
     for i in np.flatnonzero(fitted & ~inside):
         if vr > hi[i] and full[i] > hi[i] * (1 + LEAKAGE_VOLTAGE_SLACK):
-            reason[i] = (f"{vr:g} V is above {hi[i]:.4g} V, where the leakage model ends "
-                         f"and breakdown begins (readings up to {full[i]:.4g} V)")
+            ev.refuse(i, "above_breakdown", condition=f"{vr:g} V", high=f"{hi[i]:.4g} V",
+                      top=f"{full[i]:.4g} V")
         else:
-            reason[i] = (f"{vr:g} V is outside the measured reverse-voltage range "
-                         f"{lo[i]:.4g}–{hi[i]:.4g} V")
-    for i in np.flatnonzero(~fitted):
-        first = note[i].split("; ")[0]
-        reason[i] = (f"leakage data rejected: {first}" if status[i] == "rejected"
-                     else first or "no fitted leakage model")
-    return Evaluated(names, value, reason)
+            ev.refuse(i, "outside_range", condition=f"{vr:g} V", what="reverse-voltage",
+                      low=f"{lo[i]:.4g}", high=f"{hi[i]:.4g} V")
+    _unfitted(ev, devices, np.flatnonzero(~fitted), "leakage", "no fitted leakage model")
+    return ev
+
+
+# --------------------------------------------------------------------------- by name
+
+@dataclass(frozen=True)
+class Quantity:
+    """A quantity a profile can name: where it comes from and how it is measured."""
+
+    dataset: str                  # extraction table it is evaluated from (kinset.registry)
+    unit: str                     # SI unit of its tolerance keys ("" for dimensionless)
+    condition: str | None = None  # "at_current_A" or "at_reverse_voltage_V", or None
+    accuracy: str | None = None   # reel.yaml accuracy entry of the instrument, if any
+    column: str | None = None     # table column, for quantities without a condition
+    label: str = ""
+    # (tables, condition, temperature) -> Evaluated; None: the column's value
+    evaluator: Callable | None = None
+
+
+QUANTITIES: dict[str, Quantity] = {
+    "forward_voltage": Quantity(
+        "forward", "V", "at_current_A", "voltage", label="forward voltage",
+        evaluator=lambda t, c, temp: forward_voltage(t["forward"], c, temp, t.get("forward_readings"))),
+    "forward_voltage_tempco": Quantity(
+        "forward", "V_per_K", "at_current_A", label="forward-voltage temperature coefficient",
+        evaluator=lambda t, c, temp: forward_voltage_tempco(t["forward"], c, temp)),
+    "reverse_current": Quantity(
+        "leakage", "A", "at_reverse_voltage_V", "current", label="reverse current",
+        evaluator=lambda t, c, temp: reverse_current(t["leakage"], c, temp)),
+    "capacitance": Quantity(
+        "capacitance", "F", "at_reverse_voltage_V", "capacitance", label="capacitance",
+        evaluator=lambda t, c, temp: capacitance(t["capacitance"], c, t.get("capacitance_points"))),
+    "recovery_time": Quantity("recovery", "s", None, "time", "trr_s", "recovery time trr"),
+    "recovery_charge": Quantity("recovery", "C", None, None, "qrr_C", "recovered charge Qrr"),
+    "peak_reverse_current": Quantity("recovery", "A", None, "current", "irrm_A",
+                                     "peak reverse current Irrm"),
+    "ideality": Quantity("forward", "", None, None, "n", "ideality N"),
+    "series_resistance": Quantity("forward", "ohm", None, None, "rs_ohm", "series resistance RS"),
+}
+
+CONDITION_UNITS = {"at_current_A": "A", "at_reverse_voltage_V": "V"}
+
+
+def evaluate(quantity: str, condition: float | None, tables: dict[str, pd.DataFrame],
+             temperature: float) -> Evaluated | None:
+    """One quantity at one condition for every device of its dataset's table.
+
+    ``tables`` maps table names (``forward``, ``forward_readings``, ...) to the
+    extraction tables; ``None`` when the reel has no table of the quantity's dataset.
+    """
+    q = QUANTITIES[quantity]
+    table = tables.get(q.dataset)
+    if table is None:
+        return None
+    if q.evaluator is not None:
+        return q.evaluator(tables, condition, temperature)
+    return column_value(table, q.column, q.label)
+
+
+def describe(quantity: str, condition: float | None) -> str:
+    """``forward voltage at 100 µA``: the quantity's label and its condition."""
+    q = QUANTITIES[quantity]
+    if condition is None:
+        return q.label
+    return f"{q.label} at {si(condition, CONDITION_UNITS[q.condition])}"

@@ -17,14 +17,12 @@ from pathlib import Path
 
 from kinset import __version__
 from kinset.errors import InputError
-from kinset.extract import EXTRACTORS, SETTINGS_USED
 from kinset.io.reel import Reel, load_reel
-from kinset.matching.profile import resolve_profile
+from kinset.registry import BY_NAME, NAMES
+from kinset.io.profiles import resolve_profile
 
-# What the report rule writes per application, and the side tables it reads beside a
-# dataset's table (written by the same extraction job).
+# What the report rule writes per application.
 REPORT_OUTPUTS = ("report.html", "models.lib", "pick_list.csv")
-REPORT_SIDE_TABLES = {"forward": ("_readings",), "capacitance": ("_points",)}
 
 SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]*$")
 BUCKET_PATTERN = r"[A-Za-z0-9][A-Za-z0-9._-]*"
@@ -66,7 +64,7 @@ class Plan:
 
     @property
     def datasets(self) -> list[str]:
-        return [d for d in EXTRACTORS if self.buckets.get(d)
+        return [d for d in NAMES if self.buckets.get(d)
                 or (d == "capacitance" and (self.vna or self.vna_unlisted))]
 
     @property
@@ -94,7 +92,7 @@ class Plan:
 
     def settings_digest(self, dataset: str) -> str:
         """Short digest of the reel settings an extraction uses (a rerun trigger)."""
-        used = {k: self.reel.settings.get(k) for k in SETTINGS_USED[dataset]}
+        used = {k: self.reel.settings.get(k) for k in BY_NAME[dataset].settings_used}
         text = json.dumps(used, sort_keys=True)
         return hashlib.sha256(text.encode()).hexdigest()[:16]
 
@@ -103,14 +101,15 @@ class Plan:
         out.append(str(self.out / "devices.csv"))
         out.append(str(self.out / "reel.json"))
         for name in self.applications:
-            out += [str(self.out / name / f) for f in ("sets.csv", "unmatched.csv", "summary.json")]
+            out += [str(self.out / name / f) for f in ("sets.csv", "unmatched.csv", "values.csv",
+                                                   "summary.json")]
             out += [str(self.out / name / f) for f in REPORT_OUTPUTS]
         return out
 
-    def report_tables(self) -> list[str]:
-        """The extraction tables a report reads: each dataset's table and its side tables."""
-        return [str(self.out / f"{d}{side}.csv") for d in self.datasets
-                for side in ("",) + REPORT_SIDE_TABLES.get(d, ())]
+    def tables(self) -> list[str]:
+        """Every extraction table of the reel: each dataset's table and its side tables
+        (what matching and the report read)."""
+        return [str(self.out / f"{t}.csv") for d in self.datasets for t in BY_NAME[d].tables]
 
     def profile(self, application: str) -> str:
         return self.applications[application]
@@ -121,7 +120,7 @@ def make_plan(config: dict) -> Plan:
     reel = load_reel(config["reel"])
     plan = Plan(reel=reel, results=Path(config["results"]),
                 max_jobs=int(config["max_jobs_per_dataset"]))
-    for dataset in EXTRACTORS:
+    for dataset in NAMES:
         files = reel.dataset_files(dataset)
         groups: dict[str, list[str]] = {}
         for f in files:
@@ -142,7 +141,7 @@ def make_plan(config: dict) -> Plan:
         plan.applications[name] = str(path)
     if not plan.datasets:
         raise InputError("the reel folder holds no dataset files "
-                         f"(expected CSV files in {', '.join(EXTRACTORS)}/)", reel.folder)
+                         f"(expected CSV files in {', '.join(NAMES)}/)", reel.folder)
     return plan
 
 
@@ -198,5 +197,17 @@ def vna_groups(reel: Reel, max_jobs: int) -> tuple[dict[str, dict], list[str]]:
     return groups, [str(p) for p in unlisted_touchstone(folder, index)]
 
 
-PYTHON = sys.executable
 VERSION = __version__
+
+
+def rule_python(deployment_methods) -> str:
+    """The interpreter the rules call ``-m kinset`` with.
+
+    With ``--sdm conda`` Snakemake activates each rule's environment
+    (``envs/kinset.yaml``) before its command, so the command must name that
+    environment's ``python``, not the host interpreter's path. Without it, the host
+    interpreter (``sys.executable``): kinset is installed there even when no virtual
+    environment is activated in the shell.
+    """
+    names = {getattr(m, "name", str(m)).lower() for m in deployment_methods or ()}
+    return "python" if "conda" in names else sys.executable

@@ -103,10 +103,3 @@ def read_recovery(path: str | Path) -> pd.DataFrame:
             frame[col] = np.nan
     return frame
 
-
-READERS = {
-    "forward": read_forward,
-    "leakage": read_leakage,
-    "capacitance": read_capacitance,
-    "recovery": read_recovery,
-}

@@ -13,8 +13,8 @@ import numpy as np
 import pandas as pd
 
 from kinset.errors import InputError
-from kinset.io.datasets import READERS
 from kinset.io.output import atomic_output
+from kinset.registry import dataset as dataset_record
 
 
 _COLUMNS = "__columns__"      # the column names in order (files written since text codes)
@@ -59,7 +59,7 @@ def load_parsed(path: str | Path) -> pd.DataFrame:
 
 def read_inputs(dataset: str, files: list[str | Path]) -> pd.DataFrame:
     """Read raw CSV files or parsed ``.npz`` files of one dataset into one table."""
-    reader = READERS[dataset]
+    reader = dataset_record(dataset).read
     frames = []
     for f in files:
         f = str(f)

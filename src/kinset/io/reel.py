@@ -8,10 +8,8 @@ from pathlib import Path, PureWindowsPath
 
 from kinset.errors import InputError
 from kinset.io.config import read_yaml, validate
-from kinset.io.units import ZERO_CELSIUS_K
-from kinset.matching.profile import is_profile_name, resolve_profile
-
-DATASETS = ("forward", "leakage", "capacitance", "recovery")
+from kinset.si import ZERO_CELSIUS
+from kinset.io.profiles import is_profile_name, resolve_profile
 
 # Defaults of the SPICE IS(T) law by junction material: EG [eV], XTI [1].
 # From memory of the usual SPICE model values (silicon 1.11/3, Schottky barrier
@@ -57,13 +55,13 @@ class Reel:
     @property
     def reference_temperature(self) -> float:
         """[K]"""
-        return self.settings["reference_temperature_C"] + ZERO_CELSIUS_K
+        return self.settings["reference_temperature_C"] + ZERO_CELSIUS
 
     @property
     def ambient_temperature(self) -> float:
         """Temperature of rows without one [K]."""
         t = self.settings["ambient_temperature_C"]
-        return (self.settings["reference_temperature_C"] if t is None else t) + ZERO_CELSIUS_K
+        return (self.settings["reference_temperature_C"] if t is None else t) + ZERO_CELSIUS
 
     @property
     def eg(self) -> float:

@@ -10,14 +10,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from kinset.errors import InputError
+from kinset.si import PREFIXES, ZERO_CELSIUS
 
-# SI prefixes (BIPM, The International System of Units, 9th edition, 2019, Table 7).
-# "u" and the micro sign both stand for micro, as instrument exports use either.
-PREFIXES: dict[str, float] = {
-    "T": 1e12, "G": 1e9, "M": 1e6, "k": 1e3, "": 1.0,
-    "m": 1e-3, "u": 1e-6, "\u00b5": 1e-6, "\u03bc": 1e-6,
-    "n": 1e-9, "p": 1e-12, "f": 1e-15,
-}
 
 # Base units kinset reads, by dimension. "ohm" is written out because the Greek
 # letter rarely survives an export; "Ohm" is accepted too.
@@ -30,8 +24,6 @@ BASE_UNITS: dict[str, tuple[str, ...]] = {
     "resistance": ("ohm", "Ohm"),
     "charge": ("C",),
 }
-
-ZERO_CELSIUS_K = 273.15  # [K], definition of the Celsius scale (BIPM SI Brochure §2.3.1)
 
 
 @dataclass(frozen=True)
@@ -68,7 +60,7 @@ def unit_scale(unit: str, dimension: str) -> tuple[float, float]:
     """
     if dimension == "temperature":
         if unit == "C":
-            return 1.0, ZERO_CELSIUS_K
+            return 1.0, ZERO_CELSIUS
         if unit == "K":
             return 1.0, 0.0
         raise ValueError(f"unit '{unit}' is not a temperature unit (use C or K)")

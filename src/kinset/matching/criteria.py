@@ -22,9 +22,11 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from kinset import quantities as qty
 from kinset.format import si
-from kinset.matching.profile import QUANTITIES, Dimension, Profile, Screen
+from kinset.matching.profile import Dimension, Profile, Screen
+from kinset.matching.reasons import REASONS, Reason
+from kinset.quantities import QUANTITIES
+from kinset.quantities import evaluate as evaluate_quantity
 
 SQRT3 = math.sqrt(3.0)
 
@@ -35,27 +37,30 @@ class Evaluation:
 
     devices: np.ndarray          # all devices seen, sorted
     values: pd.DataFrame         # device index, one column per dimension (NaN = missing)
-    reasons: dict[str, list[str]]  # device -> reasons it cannot take part
+    reasons: dict[str, list[Reason]]  # device -> reasons it cannot take part
     guards: dict[str, float]     # dimension -> guard band (SI, or fraction when relative)
     typical: dict[str, float]    # dimension -> median value over the reel
+    screened: pd.DataFrame | None = None   # device index, one column per screen (NaN = missing)
 
 
-def _evaluate(quantity: str, condition: float | None, tables: dict[str, pd.DataFrame],
-              temperature: float) -> qty.Evaluated | None:
-    """One quantity at one condition for every device of its table (None: no table)."""
-    q = QUANTITIES[quantity]
-    table = tables.get(q.dataset)
-    if table is None:
-        return None
-    if quantity == "forward_voltage":
-        return qty.forward_voltage(table, condition, temperature, tables.get("forward_readings"))
-    if quantity == "forward_voltage_tempco":
-        return qty.forward_voltage_tempco(table, condition, temperature)
-    if quantity == "reverse_current":
-        return qty.reverse_current(table, condition, temperature)
-    if quantity == "capacitance":
-        return qty.capacitance(table, condition)
-    return qty.column_value(table, q.column, q.label)
+def instrument_accuracy(quantity: str, value, accuracy: dict):
+    """Half-width ``a`` of the instrument's specification ±(gain·reading + offset) at ``value``.
+
+    0 for a quantity no instrument entry of reel.yaml covers.
+    """
+    kind = QUANTITIES[quantity].accuracy
+    spec = accuracy.get(kind, {}) if kind is not None else {}
+    offset_key = next((k for k in spec if k.startswith("offset")), None)
+    return spec.get("gain", 0.0) * np.abs(value) + (spec.get(offset_key, 0.0) if offset_key else 0.0)
+
+
+def instrument_uncertainty(quantity: str, values, accuracy: dict) -> np.ndarray:
+    """Standard uncertainty from the instrument alone, u = a/√3 [1]; NaN where no
+    instrument entry covers the quantity."""
+    values = np.asarray(values, dtype=float)
+    if QUANTITIES[quantity].accuracy is None:
+        return np.full(values.shape, np.nan)
+    return instrument_accuracy(quantity, values, accuracy) / SQRT3
 
 
 def _accuracy_bound(profile: Profile, dim: Dimension | Screen, typical: float,
@@ -67,13 +72,44 @@ def _accuracy_bound(profile: Profile, dim: Dimension | Screen, typical: float,
     (independent errors) has u·√2, and acceptance with coverage factor 2 needs
     spread ≤ T − 2·√2·u [2].
     """
-    kind = QUANTITIES[dim.quantity].accuracy
-    if profile.settings["guard_band"] != "accuracy" or kind is None:
+    if profile.guard_band != "accuracy" or QUANTITIES[dim.quantity].accuracy is None:
         return 0.0
-    spec = accuracy.get(kind, {})
-    offset_key = next((k for k in spec if k.startswith("offset")), None)
-    a = spec.get("gain", 0.0) * abs(typical) + (spec.get(offset_key, 0.0) if offset_key else 0.0)
-    return 2.0 * math.sqrt(2.0) * a / SQRT3
+    return 2.0 * math.sqrt(2.0) * float(instrument_accuracy(dim.quantity, typical, accuracy)) / SQRT3
+
+
+def _collect(quantity: str, condition, tables, temperature, index: pd.Index):
+    """Values of one quantity over ``index``; each refusal as (code, sentence)."""
+    ev = evaluate_quantity(quantity, condition, tables, temperature)
+    col = pd.Series(np.nan, index=index)
+    why = pd.Series("", index=index, dtype=object)
+    code = pd.Series("", index=index, dtype=object)
+    dataset = QUANTITIES[quantity].dataset
+    if ev is None:
+        why[:] = REASONS.text(f"no_{dataset}_data", dataset=dataset, where=" in this reel")
+        code[:] = f"no_{dataset}_data"
+        return col, why, code
+    ev_index = pd.Index(ev.device.astype(str))      # device ids are unique per table
+    present = index.isin(ev_index)
+    for target, source in ((col, ev.value), (why, ev.reason), (code, ev.code)):
+        target[present] = pd.Series(source, index=ev_index).reindex(index[present]).to_numpy()
+    why[~present] = REASONS.text(f"no_{dataset}_data", dataset=dataset, where="")
+    code[~present] = f"no_{dataset}_data"
+    return col, why, code
+
+
+def _screen(screen: Screen, col, why, code, reasons) -> None:
+    for dev in col.index:
+        if why[dev]:
+            reasons[dev].append(Reason.wrapped("screen_refused", code[dev], why[dev],
+                                               screen.describe(), screen.name))
+            continue
+        v = col[dev]
+        for limit, side, beyond in ((screen.maximum, "above", v > (screen.maximum or 0)),
+                                    (screen.minimum, "below", v < (screen.minimum or 0))):
+            if limit is not None and beyond:
+                reasons[dev].append(Reason.of(
+                    "screen_failed", screen.name, criterion=screen.describe(), value=si(v, screen.unit),
+                    side=side, limit=si(limit, screen.unit)))
 
 
 def evaluate(profile: Profile, tables: dict[str, pd.DataFrame], all_devices,
@@ -81,54 +117,30 @@ def evaluate(profile: Profile, tables: dict[str, pd.DataFrame], all_devices,
     """Evaluate every dimension and screen of ``profile`` for ``all_devices``."""
     devices = np.asarray(sorted(set(map(str, all_devices))), dtype=object)
     index = pd.Index(devices, name="device")
-    reasons: dict[str, list[str]] = {d: [] for d in devices}
+    reasons: dict[str, list[Reason]] = {d: [] for d in devices}
     values = pd.DataFrame(index=index)
+    screened = pd.DataFrame(index=index)
     guards, typical = {}, {}
     t = profile.temperature
-
-    def collect(quantity, condition):
-        ev = _evaluate(quantity, condition, tables, t)
-        col = pd.Series(np.nan, index=index)
-        why = pd.Series("", index=index, dtype=object)
-        dataset = QUANTITIES[quantity].dataset
-        if ev is None:
-            why[:] = f"no {dataset} data in this reel"
-            return col, why
-        ev_index = pd.Index(ev.device.astype(str))      # device ids are unique per table
-        got = pd.Series(ev.value, index=ev_index)
-        present = index.isin(ev_index)
-        col[present] = got.reindex(index[present]).to_numpy()
-        why[present] = pd.Series(ev.reason, index=ev_index).reindex(index[present]).to_numpy()
-        why[~present] = f"no {dataset} data"
-        return col, why
-
     for dim in profile.dimensions:
-        col, why = collect(dim.quantity, dim.condition)
+        col, why, code = _collect(dim.quantity, dim.condition, tables, t, index)
         if dim.relative:
             bad = col.notna() & ~(col > 0)
-            why[bad] = f"{dim.describe()} is not positive, cannot be matched in percent"
+            why[bad] = REASONS.text("not_positive", criterion=dim.describe())
+            code[bad] = "not_positive"
             col[bad] = np.nan
         values[dim.name] = col
         for dev in index[why.to_numpy() != ""]:
-            reasons[dev].append(f"{dim.describe()}: {why[dev]}")
+            reasons[dev].append(Reason.wrapped("criterion_refused", code[dev], why[dev],
+                                               dim.describe(), dim.name))
         finite = col[np.isfinite(col)]
         typical[dim.name] = float(finite.median()) if len(finite) else math.nan
         guards[dim.name] = _accuracy_bound(profile, dim, typical[dim.name], accuracy)
-
     for screen in profile.screens:
-        col, why = collect(screen.quantity, screen.condition)
-        for dev in index:
-            if why[dev]:
-                reasons[dev].append(f"screen on {screen.describe()}: {why[dev]}")
-                continue
-            v = col[dev]
-            if screen.maximum is not None and v > screen.maximum:
-                reasons[dev].append(f"screen: {screen.describe()} {si(v, screen.unit)} is above "
-                                    f"the limit {si(screen.maximum, screen.unit)}")
-            if screen.minimum is not None and v < screen.minimum:
-                reasons[dev].append(f"screen: {screen.describe()} {si(v, screen.unit)} is below "
-                                    f"the limit {si(screen.minimum, screen.unit)}")
-    return Evaluation(devices, values, reasons, guards, typical)
+        col, why, code = _collect(screen.quantity, screen.condition, tables, t, index)
+        screened[screen.name] = col
+        _screen(screen, col, why, code, reasons)
+    return Evaluation(devices, values, reasons, guards, typical, screened)
 
 
 def effective_tolerance(dim: Dimension, guard: float, typical: float) -> float:

@@ -8,42 +8,14 @@ currents is four dimensions), each with a tolerance in SI and a weight.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from difflib import get_close_matches
-from importlib import resources
 from pathlib import Path
 
 from kinset.errors import InputError
 from kinset.format import si
 from kinset.io.config import read_yaml, validate
-from kinset.io.units import PREFIXES
-
-
-@dataclass(frozen=True)
-class Quantity:
-    """A quantity a profile can name: where it comes from and how it is measured."""
-
-    dataset: str                  # extraction table it is evaluated from
-    unit: str                     # SI unit of its tolerance keys ("" for dimensionless)
-    condition: str | None = None  # "at_current_A" or "at_reverse_voltage_V", or None
-    accuracy: str | None = None   # reel.yaml accuracy entry of the instrument, if any
-    column: str | None = None     # table column, for quantities without a condition
-    label: str = ""
-
-
-QUANTITIES: dict[str, Quantity] = {
-    "forward_voltage": Quantity("forward", "V", "at_current_A", "voltage", label="forward voltage"),
-    "forward_voltage_tempco": Quantity("forward", "V_per_K", "at_current_A",
-                                       label="forward-voltage temperature coefficient"),
-    "reverse_current": Quantity("leakage", "A", "at_reverse_voltage_V", "current", label="reverse current"),
-    "capacitance": Quantity("capacitance", "F", "at_reverse_voltage_V", "capacitance", label="capacitance"),
-    "recovery_time": Quantity("recovery", "s", None, "time", "trr_s", "recovery time trr"),
-    "recovery_charge": Quantity("recovery", "C", None, None, "qrr_C", "recovered charge Qrr"),
-    "peak_reverse_current": Quantity("recovery", "A", None, "current", "irrm_A", "peak reverse current Irrm"),
-    "ideality": Quantity("forward", "", None, None, "n", "ideality N"),
-    "series_resistance": Quantity("forward", "ohm", None, None, "rs_ohm", "series resistance RS"),
-}
-
-CONDITION_UNITS = {"at_current_A": "A", "at_reverse_voltage_V": "V"}
+from kinset.io.profiles import resolve_profile
+from kinset.quantities import CONDITION_UNITS, QUANTITIES, Quantity, describe
+from kinset.si import PREFIXES, ZERO_CELSIUS
 
 
 @dataclass(frozen=True)
@@ -59,11 +31,7 @@ class Dimension:
     unit: str
 
     def describe(self) -> str:
-        q = QUANTITIES[self.quantity]
-        where = ""
-        if self.condition is not None:
-            where = f" at {si(self.condition, CONDITION_UNITS[q.condition])}"
-        return q.label + where
+        return describe(self.quantity, self.condition)
 
 
 @dataclass(frozen=True)
@@ -74,70 +42,53 @@ class Screen:
     maximum: float | None
     unit: str
 
+    @property
+    def name(self) -> str:
+        """Column stem of the screened value, named like a dimension."""
+        return dimension_name(self.quantity, self.condition)
+
     def describe(self) -> str:
-        q = QUANTITIES[self.quantity]
-        where = f" at {si(self.condition, CONDITION_UNITS[q.condition])}" if self.condition is not None else ""
-        return q.label + where
+        return describe(self.quantity, self.condition)
 
 
 @dataclass
 class Profile:
+    """One application profile, validated, with every default filled in.
+
+    ``settings`` keeps the validated mapping as read (for the report's provenance);
+    programs read the typed fields.
+    """
+
     name: str            # output folder name: shipped name or the YAML file's stem
     path: Path
     settings: dict
+    title: str = ""      # the profile's own name: key (or ``name`` when it has none)
+    description: str = ""
+    set_size: int = 2
+    goal: str = "most_sets"          # most_sets | tightest_sets
+    guard_band: str = "accuracy"     # none | accuracy
+    operating_temperature_C: float = 25.0
     dimensions: list[Dimension] = field(default_factory=list)
     screens: list[Screen] = field(default_factory=list)
 
-    @property
-    def set_size(self) -> int:
-        return int(self.settings["set_size"])
+    @classmethod
+    def from_settings(cls, name: str, path: Path, settings: dict) -> "Profile":
+        return cls(name=name, path=path, settings=settings,
+                   title=str(settings.get("name") or name),
+                   description=str(settings.get("description") or ""),
+                   set_size=int(settings["set_size"]), goal=str(settings["goal"]),
+                   guard_band=str(settings["guard_band"]),
+                   operating_temperature_C=float(settings["operating_temperature_C"]))
 
     @property
     def temperature(self) -> float:
         """Operating junction temperature [K]."""
-        return self.settings["operating_temperature_C"] + 273.15
+        return self.operating_temperature_C + ZERO_CELSIUS
 
     @property
     def datasets(self) -> set[str]:
         return {QUANTITIES[d.quantity].dataset for d in self.dimensions} | \
                {QUANTITIES[s.quantity].dataset for s in self.screens}
-
-
-def shipped_profiles() -> dict[str, Path]:
-    """Profiles that come with kinset, by name."""
-    folder = resources.files("kinset") / "applications"
-    return {Path(str(p)).stem: Path(str(p)) for p in folder.iterdir() if str(p).endswith(".yaml")}
-
-
-def is_profile_name(item: str) -> bool:
-    """A bare name (a shipped profile), not a path."""
-    return not item.endswith((".yaml", ".yml")) and "/" not in item and "\\" not in item
-
-
-def resolve_profile(name_or_path: str, base: Path | None = None, only_base: bool = False) -> Path:
-    """Path of a profile given as a shipped name or a YAML path.
-
-    A relative path is looked for under ``base`` first, then (unless ``only_base``:
-    a path written in reel.yaml is relative to the reel folder alone) in the working
-    folder.
-    """
-    shipped = shipped_profiles()
-    if name_or_path in shipped:
-        return shipped[name_or_path]
-    p = Path(name_or_path)
-    candidates = [base / p] if base is not None and not p.is_absolute() else []
-    for candidate in candidates + ([] if only_base else [p]):
-        if candidate.suffix in (".yaml", ".yml") and candidate.is_file():
-            return candidate
-    names = ", ".join(sorted(shipped))
-    if is_profile_name(name_or_path):
-        close = get_close_matches(name_or_path, sorted(shipped), n=1)
-        hint = f"did you mean '{close[0]}'? " if close else ""
-        raise InputError(f"no shipped application profile '{name_or_path}': {hint}the shipped "
-                         f"ones are {names} (or give a YAML file)")
-    where = " in the reel folder" if only_base else ""
-    raise InputError(f"application profile '{name_or_path}' not found{where}: give a YAML "
-                     f"file or one of {names}")
 
 
 def _unit_factor(unit: str, expected: str, path, line, key) -> float:
@@ -170,7 +121,7 @@ def _conditions(entry: dict, q: Quantity, where: tuple, path, lines) -> list[flo
     return [float(v) for v in (value if isinstance(value, list) else [value])]
 
 
-def _dimension_name(quantity: str, condition: float | None) -> str:
+def dimension_name(quantity: str, condition: float | None) -> str:
     if condition is None:
         return quantity
     unit = CONDITION_UNITS[QUANTITIES[quantity].condition]
@@ -185,7 +136,7 @@ def load_profile(name_or_path: str, base: Path | None = None) -> Profile:
     if not isinstance(data, dict):
         raise InputError("an application profile must be a mapping of keys to values", path, 1)
     settings = validate(data, "application", path, lines)
-    profile = Profile(name=path.stem, path=path, settings=settings)
+    profile = Profile.from_settings(path.stem, path, settings)
     for i, entry in enumerate(settings["match"]):
         where = ("match", i)
         q = QUANTITIES[entry["quantity"]]
@@ -207,7 +158,7 @@ def load_profile(name_or_path: str, base: Path | None = None) -> Profile:
             tol, relative, unit = entry[key] * factor, False, q.unit
         for cond in _conditions(entry, q, where, path, lines):
             profile.dimensions.append(Dimension(
-                name=_dimension_name(entry["quantity"], cond), quantity=entry["quantity"],
+                name=dimension_name(entry["quantity"], cond), quantity=entry["quantity"],
                 condition=cond, tolerance=tol, relative=relative,
                 weight=float(entry.get("weight", 1.0)), unit=unit))
     names = [d.name for d in profile.dimensions]

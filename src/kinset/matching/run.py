@@ -17,11 +17,12 @@ from scipy.spatial import cKDTree
 from kinset.errors import InputError
 from kinset.format import si
 from kinset.io.output import read_result, write_csv, write_text
-from kinset.matching.criteria import effective_tolerance, evaluate, normalise, spread
+from kinset.matching.criteria import (effective_tolerance, evaluate, instrument_uncertainty,
+                                     normalise, spread)
 from kinset.matching.profile import Profile, load_profile
+from kinset.matching.reasons import Reason, stage_of
 from kinset.matching.sets import form_sets
-
-TABLES = ("forward", "forward_readings", "leakage", "capacitance", "recovery")
+from kinset.registry import NAMES, TABLES
 
 
 def read_results(folder: str | Path) -> tuple[dict[str, pd.DataFrame], list[str], dict]:
@@ -34,7 +35,7 @@ def read_results(folder: str | Path) -> tuple[dict[str, pd.DataFrame], list[str]
     if (folder / "devices.csv").is_file():
         devices = read_result(folder / "devices.csv")["device"].astype(str).tolist()
     else:
-        devices = sorted({d for n, t in tables.items() if n != "forward_readings"
+        devices = sorted({d for n, t in tables.items() if n in NAMES
                           for d in t["device"].astype(str)})
     if not devices:
         raise InputError("no extraction tables (forward.csv, leakage.csv, ...) found", folder)
@@ -50,6 +51,7 @@ class MatchResult:
     sets: pd.DataFrame
     unmatched: pd.DataFrame
     summary: dict = field(default_factory=dict)
+    values: pd.DataFrame | None = None
 
 
 def _default_accuracy() -> dict:
@@ -69,6 +71,7 @@ class Candidates:
     raw: np.ndarray
     z: np.ndarray
     accuracy_note: str = ""
+    accuracy: dict = field(default_factory=dict)   # reel.yaml accuracy as used
 
 
 def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
@@ -83,82 +86,122 @@ def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Pro
     eff = {d.name: effective_tolerance(d, ev.guards[d.name], ev.typical[d.name]) for d in dims}
     impossible = [d for d in dims if not eff[d.name] > 0]
     for d in impossible:
+        reason = Reason.of("within_guard_band", d.name, criterion=d.describe(),
+                           guard=_fmt(ev.guards[d.name], d))
         for dev in ev.devices:
-            ev.reasons[dev].append(
-                f"{d.describe()}: tolerance is within the measurement guard band "
-                f"({_fmt(ev.guards[d.name], d)}); the instruments cannot verify it")
+            ev.reasons[dev].append(reason)
     cand = np.asarray([d for d in ev.devices if not ev.reasons[d]], dtype=object)
     raw = ev.values.loc[cand, [d.name for d in dims]].to_numpy(dtype=float) \
         if len(cand) else np.empty((0, len(dims)))
     z = np.column_stack([normalise(raw[:, j], d, eff[d.name]) for j, d in enumerate(dims)]) \
         if len(cand) else np.empty((0, len(dims)))
-    return Candidates(ev, eff, cand, raw, z, accuracy_note)
+    return Candidates(ev, eff, cand, raw, z, accuracy_note, accuracy)
+
+
+def _spread_columns(dims) -> list[str]:
+    return [c for d in dims for c in (f"{d.name}_spread{_suffix(d)}", f"{d.name}_margin{_suffix(d)}")]
+
+
+def set_table(found: list, c: Candidates, dims) -> pd.DataFrame:
+    """sets.csv without positions: each placed part with its set's spreads and margins."""
+    rows = []
+    for s, members in enumerate(found, start=1):
+        block = c.raw[members]
+        spreads = {}
+        for j, d in enumerate(dims):
+            sp = spread(block[:, j], d)
+            scale = 100 if d.relative else 1
+            spreads[f"{d.name}_spread{_suffix(d)}"] = sp * scale
+            spreads[f"{d.name}_margin{_suffix(d)}"] = (c.tolerance[d.name] - sp) * scale
+        rows += [{"set": s, "device": c.devices[m], **spreads} for m in members]
+    return pd.DataFrame(rows, columns=["set", "device"] + _spread_columns(dims))
+
+
+def no_set_reasons(c: Candidates, placed: set, k: int) -> None:
+    """Why each candidate left unplaced found no set: partners within every tolerance."""
+    left = [d for d in c.devices if d not in placed]
+    neighbours = _neighbour_counts(c.z, [i for i, d in enumerate(c.devices) if d not in placed])
+    for dev, nb in zip(left, neighbours):
+        if nb + 1 >= k:
+            reason = Reason.of("partners_used")
+        elif nb:
+            reason = Reason.of("too_few_partners", count=nb, needed=k - 1)
+        else:
+            reason = Reason.of("no_partner")
+        c.evaluation.reasons[dev].append(reason)
+
+
+def unmatched_table(ev, placed: set) -> pd.DataFrame:
+    """unmatched.csv without positions: every part not placed, its reasons, and the stage,
+    code and criterion (dimension or screen name, '' for the whole part) of its first reason."""
+    left = [d for d in ev.devices if d not in placed]
+    first = [ev.reasons[d][0] if ev.reasons[d] else Reason("", "") for d in left]
+    return pd.DataFrame({
+        "device": left,
+        "reason": ["; ".join(r.text for r in ev.reasons[d]) for d in left],
+        "stage": [stage_of(r.code) for r in first],
+        "reason_code": [r.code for r in first],
+        "criterion": [r.criterion for r in first],
+    }, columns=["device", "reason", "stage", "reason_code", "criterion"])
+
+
+def values_table(c: Candidates, profile: Profile, unmatched: pd.DataFrame) -> pd.DataFrame:
+    """values.csv: every part's value of each dimension and screen (SI) and its standard
+    uncertainty ``<name>_u`` (here the instruments' part, JCGM 100:2008 §4.3.7), with the
+    code and reason of a part not placed."""
+    ev = c.evaluation
+    out = pd.DataFrame({"device": ev.devices})
+    named = [(d.name, d.quantity) for d in profile.dimensions]
+    named += [(s.name, s.quantity) for s in profile.screens
+              if s.name not in {n for n, _ in named}]
+    for name, quantity in named:
+        frame = ev.values if name in ev.values else ev.screened
+        v = frame[name].to_numpy(dtype=float)
+        out[name] = v
+        out[f"{name}_u"] = instrument_uncertainty(quantity, v, c.accuracy)
+    why = unmatched.set_index("device")
+    for col in ("reason_code", "reason"):
+        out[col] = why[col].astype(object).reindex(ev.devices).fillna("").to_numpy()
+    return out
 
 
 def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
           accuracy: dict | None = None) -> MatchResult:
     """Form the sets of one application; every device ends in sets or unmatched."""
     c = candidates(tables, devices, profile, accuracy)
-    ev, eff, cand, raw, z = c.evaluation, c.tolerance, c.devices, c.raw, c.z
-    accuracy_note = c.accuracy_note
     dims = profile.dimensions
     weights = np.asarray([d.weight for d in dims])
     k = profile.set_size
-    if len(cand) >= k:
-        result = form_sets(z, weights, k, profile.settings["goal"])
+    if len(c.devices) >= k:
+        result = form_sets(c.z, weights, k, profile.goal)
         found, bound, method, optimal = result.sets, result.upper_bound, result.method, result.optimal
     else:
         found, bound, method, optimal = [], 0, "too few candidates for one set", True
-
-    rows = []
-    placed = set()
-    for s, members in enumerate(found, start=1):
-        block = raw[members]
-        row_base = {"set": s}
-        for j, d in enumerate(dims):
-            sp = spread(block[:, j], d)
-            row_base[f"{d.name}_spread{_suffix(d)}"] = sp * (100 if d.relative else 1)
-            row_base[f"{d.name}_margin{_suffix(d)}"] = (eff[d.name] - sp) * (100 if d.relative else 1)
-        for m in members:
-            placed.add(cand[m])
-            rows.append({"set": s, "device": cand[m], **{k_: v for k_, v in row_base.items()
-                                                                 if k_ != "set"}})
-    sets = pd.DataFrame(rows, columns=["set", "device"] + [c for d in dims for c in (
-        f"{d.name}_spread{_suffix(d)}", f"{d.name}_margin{_suffix(d)}")])
-
-    left = [d for d in cand if d not in placed]
-    neighbours = _neighbour_counts(z, [i for i, d in enumerate(cand) if d not in placed])
-    for dev, nb in zip(left, neighbours):
-        if nb + 1 < k:
-            ev.reasons[dev].append(f"only {nb} other part(s) within every tolerance, a set needs "
-                                   f"{k - 1}" if nb else "no other part within every tolerance")
-        else:
-            ev.reasons[dev].append("its compatible parts went into other sets, or cannot form "
-                                   "a full set with it")
-    unmatched = pd.DataFrame({"device": [d for d in ev.devices if d not in placed]})
-    unmatched["reason"] = ["; ".join(ev.reasons[d]) for d in unmatched["device"]]
-    unmatched["stage"] = [_stage(ev.reasons[d]) for d in unmatched["device"]]
-
+    sets = set_table(found, c, dims)
+    placed = set(sets["device"])
+    no_set_reasons(c, placed, k)
+    unmatched = unmatched_table(c.evaluation, placed)
     counts = unmatched["stage"].value_counts().to_dict()
+    ev = c.evaluation
     summary = {
         "application": profile.name,
         "set_size": k,
-        "goal": profile.settings["goal"],
+        "goal": profile.goal,
         "sets": len(found),
         "upper_bound": int(bound),
         "optimal": bool(optimal),
         "method": method,
         "parts_seen": int(len(ev.devices)),
         "parts_with_data": int(len(ev.devices) - counts.get("data", 0)),
-        "parts_passed_screen": int(len(cand)),
+        "parts_passed_screen": int(len(c.devices)),
         "parts_used": int(len(placed)),
         "parts_left": {stage: int(n) for stage, n in sorted(counts.items())},
         "guard_band": {d.name: ev.guards[d.name] for d in dims},
-        "tolerance_used": {d.name: eff[d.name] for d in dims},
+        "tolerance_used": {d.name: c.tolerance[d.name] for d in dims},
     }
-    if accuracy_note:
-        summary["note"] = accuracy_note
-    return MatchResult(profile, sets, unmatched, summary)
+    if c.accuracy_note:
+        summary["note"] = c.accuracy_note
+    return MatchResult(profile, sets, unmatched, summary, values_table(c, profile, unmatched))
 
 
 def _suffix(dim) -> str:
@@ -169,17 +212,6 @@ def _fmt(value: float, dim) -> str:
     if dim.relative:
         return f"{100 * value:.3g} % of a typical value" if math.isfinite(value) else "n/a"
     return si(value, dim.unit.replace("_per_K", "/K")) if dim.unit else f"{value:.3g}"
-
-
-def _stage(reasons: list[str]) -> str:
-    first = reasons[0] if reasons else ""
-    if first.startswith("screen:"):
-        return "screen"
-    if "guard band" in first:
-        return "guard"
-    if first.startswith(("no other part", "only ", "its compatible")):
-        return "sets"
-    return "data"
 
 
 def _neighbour_counts(z: np.ndarray, rows: list[int]) -> list[int]:
@@ -199,7 +231,7 @@ def summary_line(summary: dict) -> str:
 
 
 def write_match(result: MatchResult, folder: str | Path, positions: dict | None = None) -> None:
-    """sets.csv, unmatched.csv and summary.json in ``folder``."""
+    """sets.csv, unmatched.csv, values.csv and summary.json in ``folder``."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     sets = result.sets.copy()
@@ -207,9 +239,11 @@ def write_match(result: MatchResult, folder: str | Path, positions: dict | None 
     pos = positions or {}
     sets.insert(2, "position", [pos.get(d, np.nan) for d in sets["device"]])
     un.insert(1, "position", [pos.get(d, np.nan) for d in un["device"]])
-    un = un[["device", "reason", "position", "stage"]]
+    un = un[["device", "reason", "position", "stage", "reason_code", "criterion"]]
     write_csv(sets, folder / "sets.csv")
     write_csv(un, folder / "unmatched.csv")
+    if result.values is not None:
+        write_csv(result.values, folder / "values.csv")
     write_text(folder / "summary.json", json.dumps(result.summary, indent=2, sort_keys=True) + "\n")
 
 
@@ -241,7 +275,7 @@ def partners(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profi
         raise InputError(f"device '{device}' is in no extraction table")
     if ev.reasons[device]:
         raise InputError(f"device '{device}' cannot be matched under {profile.name}: "
-                         + "; ".join(ev.reasons[device]))
+                         + "; ".join(r.text for r in ev.reasons[device]))
     dims = profile.dimensions
     eff = {d.name: effective_tolerance(d, ev.guards[d.name], ev.typical[d.name]) for d in dims}
     others = [d for d in ev.devices if not ev.reasons[d] and d != device]

@@ -5,9 +5,10 @@ from __future__ import annotations
 import numpy as np
 from scipy import constants as _c
 
+from kinset.si import ZERO_CELSIUS  # noqa: F401  [K], re-exported beside the CODATA constants
+
 BOLTZMANN = _c.k            # [J/K]
 ELEMENTARY_CHARGE = _c.e    # [C]
-ZERO_CELSIUS = _c.zero_Celsius  # [K]
 
 
 def thermal_voltage(temperature):

@@ -44,7 +44,7 @@ def write_report(results: str | Path, application: str, out: str | Path,
     out = Path(out)
     inputs = load_inputs(results, application, out if match_folder is None else match_folder)
     out.mkdir(parents=True, exist_ok=True)
-    title = (f"{inputs.profile.settings.get('name') or inputs.profile.name} "
+    title = (f"{inputs.profile.title} "
              f"({inputs.profile.name}), reel {inputs.reel_id}")
     lib, names = models_lib(inputs.sets, inputs.tables, inputs.reel, title, version)
     picks = pick_list(inputs.sets)

@@ -19,8 +19,11 @@ import pandas as pd
 
 from kinset import quantities as qty
 from kinset.format import si
-from kinset.matching.criteria import _evaluate   # the matcher's own evaluation of a quantity
-from kinset.matching.profile import CONDITION_UNITS, QUANTITIES
+from kinset.outcomes import has_code
+from kinset.matching.profile import dimension_name
+from kinset.quantities import QUANTITIES
+from kinset.registry import BY_NAME, NAMES
+from kinset.si import ZERO_CELSIUS
 from kinset.report import plots
 from kinset.report.inputs import ReportInputs, rows_by_device
 from kinset.report.picklist import position_text
@@ -32,7 +35,8 @@ STAGES = {
     "data": "lacks the data the profile needs",
     "screen": "failed a screening limit",
     "guard": "tolerance within the measurement guard band",
-    "sets": "passed, but no set could take it",
+    "taken": "placed by an earlier application",
+    "no_set": "passed, but no set could take it",
 }
 
 CSS = """
@@ -140,7 +144,7 @@ def reason_kind(reason: str) -> str:
 def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
     s = inp.summary
     p = inp.profile
-    title = p.settings.get("name") or p.name
+    title = p.title
     n_sets = int(s.get("sets", inp.sets["set"].nunique() if len(inp.sets) else 0))
     k = int(s.get("set_size", p.set_size))
     facts = [
@@ -153,7 +157,7 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
     if "upper_bound" in s:
         facts.append(("sets at most (bound)", s["upper_bound"]))
     lis = "".join(f"<li><b>{e(v)}</b>{e(k_)}</li>" for k_, v in facts)
-    desc = p.settings.get("description")
+    desc = p.description
     nav = "".join(f'<a href="#{a}">{e(t)}</a>' for a, t in (
         ("pick-list", "Pick list"), ("yield", "Yield"), ("distributions", "Distributions"),
         ("sets", "Sets"), ("unmatched", "Unmatched parts"), ("models", "SPICE models"),
@@ -187,11 +191,8 @@ def _yield_section(inp: ReportInputs) -> str:
               ("placed in sets", int(s.get("parts_used", len(inp.sets))))]
     fig = plots.funnel_figure(stages, "fig-yield")
     un = inp.unmatched
-    stage = un["stage"].fillna("").astype(str) if len(un) else pd.Series([], dtype=str)
-    kinds = pd.DataFrame({"stage": stage, "kind": [reason_kind(r) for r in un["reason"]]})
+    counts = _reason_groups(un)
     order = {k: i for i, k in enumerate(STAGES)}
-    counts = (kinds.groupby(["stage", "kind"], sort=False).size().reset_index(name="n")
-              if len(kinds) else pd.DataFrame(columns=["stage", "kind", "n"]))
     if len(counts):
         counts["o"] = counts["stage"].map(lambda x: order.get(x, len(order)))
         counts = counts.sort_values(["o", "n", "kind"], ascending=[True, False, True], kind="stable")
@@ -212,12 +213,30 @@ def _yield_section(inp: ReportInputs) -> str:
             + _table(["stage", "reason", "parts"], rows, {2}, "reasons") + "</section>")
 
 
+def _reason_groups(un: pd.DataFrame) -> pd.DataFrame:
+    """Parts not placed, counted per (stage, code, criterion) of their first reason.
+
+    The groups come from codes alone; each is shown with the first member's reason,
+    its part-specific values masked (:func:`reason_kind`).
+    """
+    cols = ["stage", "code", "criterion", "kind", "n"]
+    if not len(un):
+        return pd.DataFrame(columns=cols)
+    text = lambda c: un[c].fillna("").astype(str).to_numpy()   # noqa: E731
+    keys = pd.DataFrame({"stage": text("stage"), "code": text("reason_code"),
+                         "criterion": text("criterion"), "reason": un["reason"].to_numpy()})
+    grouped = keys.groupby(["stage", "code", "criterion"], sort=False)
+    counts = grouped.size().reset_index(name="n")
+    counts["kind"] = [reason_kind(r) for r in grouped["reason"].first().to_numpy()]
+    return counts[cols]
+
+
 def _damaged(inp: ReportInputs) -> set[str]:
+    """Parts whose leakage flags possible damage (code ``possible_damage``)."""
     leak = inp.table("leakage")
-    if leak is None or not len(leak):
+    if leak is None or not len(leak) or "reason_code" not in leak:
         return set()
-    note = leak["note"].fillna("").astype(str)
-    flag = (leak["status"].astype(str) == "warning") & note.str.contains("possible damage")
+    flag = has_code(leak["reason_code"], "possible_damage")
     return set(leak.loc[flag, "device"].astype(str))
 
 
@@ -229,54 +248,67 @@ def _values(ev, universe: pd.Index) -> np.ndarray:
     return s.reindex(universe).to_numpy(dtype=float)
 
 
-def _distributions_section(inp: ReportInputs) -> str:
+def _compared(inp: ReportInputs, name: str, universe: pd.Index) -> np.ndarray | None:
+    """A dimension's or screen's values as the matcher compared them (values.csv)."""
+    if name not in inp.values:
+        return None
+    return inp.values[name].reindex(universe).to_numpy(dtype=float)
+
+
+def _distribution_panels(inp: ReportInputs, universe: pd.Index, placed, damaged) -> dict:
+    """The reel's distributions: what the profile compares (as values.csv holds it), then
+    the fitted quantities an engineer looks at for any application."""
     p = inp.profile
     t = p.temperature
-    universe = pd.Index(inp.devices["device"].astype(str))
-    placed = universe.isin(set(inp.sets["device"].astype(str)))
-    damaged_set = _damaged(inp)
-    damaged = universe.isin(damaged_set)
     panels: dict[tuple, plots.Panel] = {}
 
-    def add(key, title, unit, ev, log=False):
-        if ev is None or key in panels:
+    def add(key, title, unit, log=False, values=None):
+        if key in panels:
             return
-        v = _values(ev, universe)
-        if np.isfinite(v).any():
-            panels[key] = plots.Panel(title, unit, v, placed, damaged, log)
+        quantity, condition = key
+        if values is None:
+            values = _compared(inp, dimension_name(quantity, condition), universe)
+        if values is None:
+            values = _values(qty.evaluate(quantity, condition, inp.tables, t), universe)
+        if np.isfinite(values).any():
+            panels[key] = plots.Panel(title, unit, values, placed, damaged, log)
 
-    temp = f"{t - 273.15:g} \u00b0C"
+    temp = f"{t - ZERO_CELSIUS:g} \u00b0C"
     currents = sorted({d.condition for d in p.dimensions if d.quantity == "forward_voltage"}
                       | {s.condition for s in p.screens if s.quantity == "forward_voltage"})
     for c in currents:
-        add(("forward_voltage", c), f"forward voltage at {si(c, 'A')}, {temp}", "V",
-            _evaluate("forward_voltage", c, inp.tables, t))
-    add(("ideality", None), "ideality N", "", _evaluate("ideality", None, inp.tables, t))
-    add(("series_resistance", None), "series resistance RS", "\u03a9",
-        _evaluate("series_resistance", None, inp.tables, t))
-    cap = inp.table("capacitance")
-    if cap is not None:
-        add(("cjo", None), "zero-bias capacitance CJO", "F", qty.column_value(cap, "cj0_F", "CJO"))
-    add(("recovery_time", None), "recovery time trr", "s", _evaluate("recovery_time", None, inp.tables, t))
-    leak = inp.table("leakage")
+        add(("forward_voltage", c), f"forward voltage at {si(c, 'A')}, {temp}", "V")
+    add(("ideality", None), "ideality N", "")
+    add(("series_resistance", None), "series resistance RS", "\u03a9")
+    for name in NAMES:       # fitted columns each dataset's record asks to draw
+        table = inp.table(name)
+        for column, title, unit in BY_NAME[name].panel_columns if table is not None else ():
+            add((column, None), title, unit,
+                values=_values(qty.column_value(table, column, title), universe))
+    add(("recovery_time", None), "recovery time trr", "s")
     volts = sorted({float(v) for v in (inp.reel.get("leakage") or {}).get("report_at_V", [])}
                    | {s.condition for s in p.screens if s.quantity == "reverse_current"})
-    if leak is not None:
+    if inp.table("leakage") is not None:
         for v in volts:
-            add(("reverse_current", v), f"reverse current at {v:g} V, {temp}", "A",
-                _evaluate("reverse_current", v, inp.tables, t), log=True)
+            add(("reverse_current", v), f"reverse current at {v:g} V, {temp}", "A", log=True)
     for s in p.screens:       # screened quantities not drawn above get their own panel
-        q = QUANTITIES[s.quantity]
-        where = f" at {si(s.condition, CONDITION_UNITS[q.condition])}" if s.condition is not None else ""
-        unit = {"ohm": "\u03a9", "V_per_K": "V/K"}.get(q.unit, q.unit)
-        add((s.quantity, s.condition), q.label + where, unit,
-            _evaluate(s.quantity, s.condition, inp.tables, t),
+        unit = {"ohm": "\u03a9", "V_per_K": "V/K"}.get(QUANTITIES[s.quantity].unit,
+                                                       QUANTITIES[s.quantity].unit)
+        add((s.quantity, s.condition), s.describe(), unit,
             log=s.quantity in ("reverse_current", "peak_reverse_current"))
         panel = panels.get((s.quantity, s.condition))
         if panel is not None:
             for kind, val in (("min", s.minimum), ("max", s.maximum)):
                 if val is not None:
                     panel.limits.append((kind, float(val)))
+    return panels
+
+
+def _distributions_section(inp: ReportInputs) -> str:
+    universe = pd.Index(inp.devices["device"].astype(str))
+    placed = universe.isin(set(inp.sets["device"].astype(str)))
+    damaged_set = _damaged(inp)
+    panels = _distribution_panels(inp, universe, placed, universe.isin(damaged_set))
     if not panels:
         return ('<section id="distributions"><h2>Distributions</h2><p>No fitted quantity to '
                 "draw.</p></section>")
@@ -345,7 +377,7 @@ def _groups(table: pd.DataFrame | None, wanted: set[str]) -> dict[str, pd.DataFr
 
 def _notes(dev: str, rows: dict[str, dict[str, dict]]) -> str:
     out = []
-    for name in ("forward", "leakage", "capacitance", "recovery"):
+    for name in NAMES:
         r = rows[name].get(dev)
         if r is not None and str(r.get("status")) not in ("ok", "nan", "None"):
             out.append(f"{name} {r.get('status')}: {r.get('note')}")
@@ -363,7 +395,7 @@ def _sets_section(inp: ReportInputs, names: dict[str, str]) -> str:
     set_ids = sorted(sets["set"].unique())
     drawn = set(set_ids[:MAX_DRAWN_SETS])
     wanted = set(sets.loc[sets["set"].isin(drawn), "device"])
-    rows = {k: rows_by_device(inp.table(k)) for k in ("forward", "leakage", "capacitance", "recovery")}
+    rows = {k: rows_by_device(inp.table(k)) for k in NAMES}
     readings = _groups(inp.table("forward_readings"), wanted)
     cv = _groups(inp.table("capacitance_points"), wanted)
     parts = ['<section id="sets"><h2>Sets</h2>']
@@ -381,7 +413,7 @@ def _sets_section(inp: ReportInputs, names: dict[str, str]) -> str:
             rd = None if g is None else (
                 g["current_A"].to_numpy(float), g["voltage_V"].to_numpy(float),
                 g["used"].astype(bool).to_numpy() if "used" in g else np.ones(len(g), bool),
-                g["temperature_C"].to_numpy(float) + 273.15 if "temperature_C" in g
+                g["temperature_C"].to_numpy(float) + ZERO_CELSIUS if "temperature_C" in g
                 else np.full(len(g), np.nan))
             gc = cv.get(dev)
             cp = None if gc is None else (gc["reverse_voltage_V"].to_numpy(float),
@@ -516,7 +548,7 @@ def render_page(inp: ReportInputs, names: dict[str, str], picks: pd.DataFrame, l
                 version: str) -> str:
     """The whole page as text."""
     p = inp.profile
-    title = f"{p.settings.get('name') or p.name} \u2013 reel {inp.reel_id} \u2013 kinset report"
+    title = f"{p.title} \u2013 reel {inp.reel_id} \u2013 kinset report"
     body = "\n".join([
         _header(inp, picks),
         _pick_section(picks, names),

@@ -17,12 +17,11 @@ import pandas as pd
 
 from kinset.errors import InputError
 from kinset.io.output import read_result
-from kinset.matching.profile import Profile, load_profile, shipped_profiles
+from kinset.io.profiles import shipped_profiles
+from kinset.matching.profile import Profile, load_profile
+from kinset.registry import TABLES
 
-# Extraction tables the page draws from (those present are read), in display order.
-TABLES = ("forward", "forward_readings", "leakage", "capacitance", "capacitance_points",
-          "recovery")
-MATCH_FILES = ("sets.csv", "unmatched.csv", "summary.json")
+MATCH_FILES = ("sets.csv", "unmatched.csv", "values.csv", "summary.json")
 
 
 @dataclass(frozen=True)
@@ -47,6 +46,7 @@ class ReportInputs:
     sets: pd.DataFrame
     unmatched: pd.DataFrame
     summary: dict
+    values: pd.DataFrame          # what the matcher compared (values.csv), by device
     files: list[InputFile] = field(default_factory=list)
 
     @property
@@ -145,9 +145,12 @@ def load_inputs(results: str | Path, application: str,
     _need(unmatched, ("device", "reason"), match_folder / "unmatched.csv")
     if "reason" in unmatched:
         unmatched["reason"] = unmatched["reason"].fillna("").astype(str)
-    for col in ("stage", "position"):
+    for col in ("stage", "position", "reason_code", "criterion"):
         if col not in unmatched:
             unmatched[col] = np.nan
+    values = _read_csv(seen(match_folder / "values.csv"), "values.csv", ("device",))
+    _need(values, ("device",), match_folder / "values.csv")
+    values["device"] = values["device"].astype(str)
     if "position" not in sets:
         sets["position"] = np.nan
     summary_path = seen(match_folder / "summary.json")
@@ -178,5 +181,6 @@ def load_inputs(results: str | Path, application: str,
     return ReportInputs(results=results, match_folder=match_folder, profile=profile,
                         profile_text=profile_text, profile_label=_profile_label(profile),
                         reel=reel, tables=tables, devices=devices, sets=sets,
-                        unmatched=unmatched, summary=summary, files=files)
+                        unmatched=unmatched, summary=summary, values=values.set_index("device"),
+                        files=files)
 

@@ -25,6 +25,7 @@ from matplotlib.patches import Patch
 from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
 
 from kinset.format import si
+from kinset.si import ZERO_CELSIUS, display_prefix
 from kinset.physics.capacitance import junction_capacitance
 from kinset.physics.forward import saturation_current_at, voltage_from_current
 from kinset.physics.recovery import recovery_waveform
@@ -137,10 +138,7 @@ def _prefix(values, unit: str) -> tuple[float, str]:
     finite = finite[np.isfinite(finite) & (finite > 0)]
     if not len(finite):
         return 1.0, unit
-    label = si(float(np.median(finite)), unit)
-    prefix = label.split(" ", 1)[1][: -len(unit)] if unit else ""
-    factor = {"G": 1e9, "M": 1e6, "k": 1e3, "": 1.0, "m": 1e-3, "\u00b5": 1e-6, "n": 1e-9,
-              "p": 1e-12, "f": 1e-15}.get(prefix, 1.0)
+    factor, prefix = display_prefix(float(np.median(finite)))
     return factor, prefix + unit
 
 
@@ -271,7 +269,7 @@ def _fitted(row: dict | None) -> bool:
 
 
 def _fwd_voltage(row: dict, current: np.ndarray, temperature: float | None = None) -> np.ndarray:
-    t_ref = _f(row, "reference_temperature_C") + 273.15
+    t_ref = _f(row, "reference_temperature_C") + ZERO_CELSIUS
     t = t_ref if temperature is None else temperature
     i_s = _f(row, "is_A")
     if temperature is not None and math.isfinite(_f(row, "eg_eV")):
@@ -354,7 +352,7 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
                     transform=ax.transAxes)
         ax.set_xlabel("current")
         ax.set_ylabel("V \u2212 set mean [mV]")
-        ax.set_title(f"forward voltage minus the set's mean, at {temperature - 273.15:g} \u00b0C",
+        ax.set_title(f"forward voltage minus the set's mean, at {temperature - ZERO_CELSIUS:g} \u00b0C",
                      loc="left")
 
     if has_cv:

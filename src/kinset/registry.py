@@ -1,0 +1,88 @@
+"""The datasets kinset reads, one record each: the only place their names are listed.
+
+The command line, the workflow plan, ``devices.csv``, the matcher and the report all
+iterate over :data:`DATASETS`. Adding a dataset means one record here plus its own
+modules (reader, physics, fit, extraction); see DEVELOPERS.md.
+
+Records name their functions as ``"module:function"`` and import them only when called,
+so that a job which only parses files does not pay for importing the fits.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from importlib import import_module
+from typing import Callable
+
+
+def load(target: str) -> Callable:
+    """The function named ``"package.module:function"``."""
+    module, _, name = target.partition(":")
+    return getattr(import_module(module), name)
+
+
+@dataclass(frozen=True)
+class Dataset:
+    """One dataset: its folder and table name, how it is read and extracted.
+
+    ``side_tables`` are written beside ``<name>.csv`` by the same extraction, as
+    ``<name>_<side>.csv`` (the forward readings, the capacitance points);
+    ``settings_used`` are the reel.yaml keys its extraction reads (a rerun trigger);
+    ``panel_columns`` the fitted columns the report draws for every part of the reel
+    (column, title, unit).
+    """
+
+    name: str
+    label: str
+    reader: str
+    extractor: str
+    settings_used: tuple[str, ...]
+    side_tables: tuple[str, ...] = ()
+    panel_columns: tuple[tuple[str, str, str], ...] = ()
+
+    @property
+    def tables(self) -> tuple[str, ...]:
+        """Stems of every table its extraction writes: ``<name>`` then the side tables."""
+        return (self.name,) + tuple(f"{self.name}_{s}" for s in self.side_tables)
+
+    def read(self, path):
+        """One raw input file read into SI arrays (:mod:`kinset.io.datasets`)."""
+        return load(self.reader)(path)
+
+    def extract(self, reel, files):
+        """Every device's fit (:mod:`kinset.extract`): an ``Extraction``."""
+        return load(self.extractor)(reel, files)
+
+    def quantities(self) -> list[str]:
+        """The profile quantities evaluated from this dataset's tables."""
+        from kinset.quantities import QUANTITIES
+        return [name for name, q in QUANTITIES.items() if q.dataset == self.name]
+
+
+DATASETS: tuple[Dataset, ...] = (
+    Dataset("forward", "forward V–I", "kinset.io.datasets:read_forward",
+            "kinset.extract:extract_forward",
+            ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
+             "thermal_resistance_K_per_W", "self_heating"),
+            side_tables=("readings",)),
+    Dataset("leakage", "reverse leakage", "kinset.io.datasets:read_leakage",
+            "kinset.extract:extract_leakage",
+            ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
+             "accuracy", "leakage")),
+    Dataset("capacitance", "junction capacitance", "kinset.io.datasets:read_capacitance",
+            "kinset.extract:extract_capacitance",
+            ("reference_temperature_C", "ambient_temperature_C", "accuracy", "capacitance"),
+            side_tables=("points",),
+            panel_columns=(("cj0_F", "zero-bias capacitance CJO", "F"),)),
+    Dataset("recovery", "reverse recovery", "kinset.io.datasets:read_recovery",
+            "kinset.extract:extract_recovery", ("recovery",)),
+)
+
+NAMES: tuple[str, ...] = tuple(d.name for d in DATASETS)
+BY_NAME: dict[str, Dataset] = {d.name: d for d in DATASETS}
+# Every table an extraction writes, datasets in order, each followed by its side tables.
+TABLES: tuple[str, ...] = tuple(t for d in DATASETS for t in d.tables)
+
+
+def dataset(name: str) -> Dataset:
+    return BY_NAME[name]
