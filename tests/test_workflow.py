@@ -1,5 +1,6 @@
 """The Snakemake workflow end to end on a small reel, and what a rerun touches."""
 
+import os
 import shutil
 import subprocess
 import sys
@@ -83,3 +84,46 @@ def test_lint_is_clean(tmp_path):
     make_reel(tmp_path / "reel")
     r = snakemake(tmp_path, "--lint")
     assert r.returncode == 0, r.stdout + r.stderr
+
+
+# A stand-in for the conda command: Snakemake asks it these three things before a dry run
+# with --sdm conda (snakemake/deployment/conda.py: info, --version, channel_priority); a
+# dry run creates no environment, so nothing else is asked.
+FAKE_CONDA = """#!/bin/sh
+case "$*" in
+  "info --json") echo '{"conda_version": "24.7.1", "platform": "linux-64", "conda_prefix": "%s"}' ;;
+  "--version") echo "conda 24.7.1" ;;
+  "config --get channel_priority --json") echo '{"get": {"channel_priority": "strict"}}' ;;
+  *) echo "stand-in conda: $*" >&2; exit 1 ;;
+esac
+"""
+
+
+def shell_commands(r) -> list[str]:
+    """The shell commands a dry run prints (the target rule 'all' prints None)."""
+    found = [line.split("Shell command:", 1)[1].strip()
+             for line in (r.stdout + r.stderr).splitlines() if "Shell command:" in line]
+    return [c for c in found if c != "None"]
+
+
+def test_each_rule_runs_its_conda_environments_python_under_sdm_conda(tmp_path):
+    make_reel(tmp_path / "reel")
+    bin_dir = tmp_path / "bin"
+    bin_dir.mkdir()
+    conda = bin_dir / "conda"
+    conda.write_text(FAKE_CONDA % (tmp_path / "conda"), encoding="utf-8")
+    conda.chmod(0o755)
+    env = {**os.environ, "PATH": f"{bin_dir}{os.pathsep}{os.environ['PATH']}"}
+    cmd = [sys.executable, "-m", "snakemake", "-s", str(ROOT / "Snakefile"), "--cores", "1",
+           "--directory", str(tmp_path), "--config", f"reel={tmp_path / 'reel'}",
+           f"results={tmp_path / 'results'}", "--dry-run", "--printshellcmds"]
+    with_conda = subprocess.run(cmd + ["--sdm", "conda"], capture_output=True, text=True,
+                                timeout=300, env=env)
+    assert with_conda.returncode == 0, with_conda.stderr + with_conda.stdout
+    host = subprocess.run(cmd, capture_output=True, text=True, timeout=300, env=env)
+    assert host.returncode == 0, host.stderr + host.stdout
+    conda_cmds, host_cmds = shell_commands(with_conda), shell_commands(host)
+    # every job of this reel's plan: two parse jobs, the extraction, devices, reel settings
+    assert len(conda_cmds) == len(host_cmds) == 5
+    assert all(c.startswith("python -m kinset ") for c in conda_cmds), conda_cmds
+    assert all(c.startswith(f"{sys.executable} -m kinset ") for c in host_cmds), host_cmds

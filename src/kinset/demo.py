@@ -119,13 +119,13 @@ LAYOUTS = ("workshop", "batches", "per-part")
 
 # --------------------------------------------------------------------------- formatting
 
-def _fixed(values, decimals: int) -> list[str]:
+def fixed_text(values, decimals: int) -> list[str]:
     """Fixed-point text, rounded first so that no '-0.000' appears."""
     v = np.round(np.asarray(values, dtype=float).ravel(), decimals) + 0.0
     return [f"{x:.{decimals}f}" for x in v]
 
 
-def _sci(values, digits: int) -> list[str]:
+def sci_text(values, digits: int) -> list[str]:
     return [f"{x:.{digits}e}" for x in np.asarray(values, dtype=float).ravel()]
 
 
@@ -134,7 +134,7 @@ def _sig(values, digits: int) -> list[str]:
     return [f"{x:.{digits}g}" for x in np.asarray(values, dtype=float).ravel()]
 
 
-def _parsed(text: list[str]) -> np.ndarray:
+def as_read(text: list[str]) -> np.ndarray:
     """The numbers as a reader will see them (inputs are computed from these)."""
     return np.array([float(s) for s in text])
 
@@ -254,7 +254,7 @@ def _self_heated(solve, ambient):
     return i, v, t
 
 
-def _sweep_voltages(p: pd.DataFrame, current, ambient):
+def sweep_voltages(p: pd.DataFrame, current, ambient):
     """Terminal voltage at forced currents, with self-heating; arrays (devices, points)."""
     is0, n, rs = (p[c].to_numpy()[:, None] for c in ("is_A", "n", "rs_ohm"))
 
@@ -268,8 +268,8 @@ def _sweep_voltages(p: pd.DataFrame, current, ambient):
 def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
     rng = np.random.default_rng([seed, 2])
     out = {}
-    cur_text = _sci(FORWARD_CURRENTS, 4)
-    cur = _parsed(cur_text)
+    cur_text = sci_text(FORWARD_CURRENTS, 4)
+    cur = as_read(cur_text)
     k = len(cur)
     for name, _ in FORWARD_BATCHES:
         sel = p[p["forward_batch"] == name]
@@ -285,9 +285,9 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
         if name in ("batch_a_sweep", "batch_b_sweep_mA", "batch_c_sweep_warm"):
             warm = name == "batch_c_sweep_warm"
             base, spread = (35.0, 0.2) if warm else (25.0, 0.15)
-            amb_text = _fixed(base + spread * rng.standard_normal(nd), 1)
-            amb = _parsed(amb_text)[:, None] + ZERO_CELSIUS
-            volt = _sweep_voltages(sel, cur[None, :], amb)
+            amb_text = fixed_text(base + spread * rng.standard_normal(nd), 1)
+            amb = as_read(amb_text)[:, None] + ZERO_CELSIUS
+            volt = sweep_voltages(sel, cur[None, :], amb)
             volt = volt + FORWARD_NOISE_V * rng.standard_normal(volt.shape)
             rows_dev = np.repeat(dev, k)
             rows_pos = np.repeat(pos, k)
@@ -300,31 +300,31 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
                             "fixture near 35 C")
             if name == "batch_b_sweep_mA":
                 cols = [list(rows_dev), list(rows_pos), _sig(np.tile(cur, nd) * 1e3, 5),
-                        _fixed(volt.ravel() * 1e3, 2), list(rows_t)]
+                        fixed_text(volt.ravel() * 1e3, 2), list(rows_t)]
                 header = ["device", "position", "current_mA", "voltage_mV", "temperature_C"]
             else:
                 cols = [list(rows_dev), list(rows_pos), list(np.tile(cur_text, nd)),
-                        _fixed(volt.ravel(), 5), list(rows_t)]
+                        fixed_text(volt.ravel(), 5), list(rows_t)]
                 header = ["device", "position", "current_A", "voltage_V", "temperature_C"]
         elif name == "batch_d_diode_check":
-            i_text = _fixed(np.full(nd, DIODE_CHECK_CURRENT * 1e3), 2)
-            i = _parsed(i_text) * 1e-3
-            volt = _sweep_voltages(sel, i[:, None], T_REF)[:, 0]
+            i_text = fixed_text(np.full(nd, DIODE_CHECK_CURRENT * 1e3), 2)
+            i = as_read(i_text) * 1e-3
+            volt = sweep_voltages(sel, i[:, None], T_REF)[:, 0]
             volt = volt + FORWARD_NOISE_V * rng.standard_normal(nd)
             head += ["bench meter, diode-check function: one reading per device at its "
                      "0.63 mA test current",
                      "room at 25 C; no temperature column (kinset takes the reel's ambient)"]
-            cols = [list(dev), pos, i_text, _fixed(volt * 1e3, 1)]
+            cols = [list(dev), pos, i_text, fixed_text(volt * 1e3, 1)]
             header = ["device", "position", "current_mA", "voltage_mV"]
         else:  # supply and resistor readings
             supply_set = np.array(SUPPLIES) + rng.normal(0.0, 2e-3, len(SUPPLIES))
-            res_text = _fixed(np.array(RESISTORS) * (1 + rng.normal(0, 3e-3, len(RESISTORS))), 1)
-            res = _parsed(res_text)
+            res_text = fixed_text(np.array(RESISTORS) * (1 + rng.normal(0, 3e-3, len(RESISTORS))), 1)
+            res = as_read(res_text)
             grid_s = np.repeat(np.arange(len(SUPPLIES)), len(RESISTORS))
             grid_r = np.tile(np.arange(len(RESISTORS)), len(SUPPLIES))
             m = len(grid_s)
-            sup_text = _fixed(supply_set[grid_s][None, :] + rng.normal(0, 2e-4, (nd, m)), 4)
-            sup = _parsed(sup_text).reshape(nd, m)
+            sup_text = fixed_text(supply_set[grid_s][None, :] + rng.normal(0, 2e-4, (nd, m)), 4)
+            sup = as_read(sup_text).reshape(nd, m)
             r = res[grid_r][None, :]
             is0, n, rs = (sel[c].to_numpy()[:, None] for c in ("is_A", "n", "rs_ohm"))
 
@@ -339,7 +339,7 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
                      "100 k; measured values); the meter reads the diode voltage",
                      "the current is (supply_V - voltage_V) / resistance_ohm; room at 25 C"]
             cols = [list(np.repeat(dev, m)), list(np.repeat(pos, m)), sup_text,
-                    list(np.tile(np.array(res_text)[grid_r], nd)), _fixed(volt.ravel(), 5)]
+                    list(np.tile(np.array(res_text)[grid_r], nd)), fixed_text(volt.ravel(), 5)]
             header = ["device", "position", "supply_V", "resistance_ohm", "voltage_V"]
         out[f"forward/{name}.csv"] = _csv(head, header, cols)
     return out
@@ -347,12 +347,12 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
 
 # --------------------------------------------------------------------------- leakage
 
-def _leakage_readings(p: pd.DataFrame, voltages: np.ndarray, rng):
+def leakage_readings(p: pd.DataFrame, voltages: np.ndarray, rng):
     """Fixture temperatures (text), model arguments per device, true and measured currents
     at ``voltages`` (devices, points), and the noise of each compliance reading."""
     n = len(p)
-    temp_text = _fixed(25.0 + 0.2 * rng.standard_normal(n), 1)
-    temp = _parsed(temp_text) + ZERO_CELSIUS
+    temp_text = fixed_text(25.0 + 0.2 * rng.standard_normal(n), 1)
+    temp = as_read(temp_text) + ZERO_CELSIUS
     gen = p["generation_current_A"].to_numpy() * generation_temperature_factor(temp, T_REF)
     args = dict(shunt_resistance=p["shunt_resistance_ohm"].to_numpy()[:, None],
                 generation_current=gen[:, None], vj=p["vj_V"].to_numpy()[:, None],
@@ -369,7 +369,7 @@ def _leakage_readings(p: pd.DataFrame, voltages: np.ndarray, rng):
     return temp_text, args, cur, noisy, v_noise, i_noise
 
 
-def _compliance_voltage(args: dict, d: int, lo: float, hi: float) -> float:
+def compliance_voltage(args: dict, d: int, lo: float, hi: float) -> float:
     """Reverse voltage at which device ``d`` draws the source's current limit [V]."""
     from scipy.optimize import brentq
     one = {k: (v[d, 0] if isinstance(v, np.ndarray) else v) for k, v in args.items()}
@@ -381,18 +381,18 @@ def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
     rng = np.random.default_rng([seed, 3])
     out = {}
     n = len(p)
-    temp_text, args, cur, noisy, v_noise, i_noise = _leakage_readings(p, LEAKAGE_VOLTAGES, rng)
+    temp_text, args, cur, noisy, v_noise, i_noise = leakage_readings(p, LEAKAGE_VOLTAGES, rng)
     dev_rows, v_rows, i_rows, t_rows = [], [], [], []
     for d in range(n):
         over = np.flatnonzero(cur[d] >= LEAKAGE_COMPLIANCE)
         stop = over[0] if over.size else len(LEAKAGE_VOLTAGES)
-        v_txt = _fixed(LEAKAGE_VOLTAGES[:stop], 3)
-        i_txt = _sci(noisy[d, :stop], 4)
+        v_txt = fixed_text(LEAKAGE_VOLTAGES[:stop], 3)
+        i_txt = sci_text(noisy[d, :stop], 4)
         if over.size:   # the source hits its current limit and reports the voltage reached
             lo = LEAKAGE_VOLTAGES[stop - 1] if stop else 0.0
-            v_c = _compliance_voltage(args, d, lo, LEAKAGE_VOLTAGES[stop])
-            v_txt += _fixed([v_c + 1e-3 * v_noise[d]], 3)
-            i_txt += _sci([LEAKAGE_COMPLIANCE * (1 + 2e-4 * i_noise[d])], 4)
+            v_c = compliance_voltage(args, d, lo, LEAKAGE_VOLTAGES[stop])
+            v_txt += fixed_text([v_c + 1e-3 * v_noise[d]], 3)
+            i_txt += sci_text([LEAKAGE_COMPLIANCE * (1 + 2e-4 * i_noise[d])], 4)
         dev_rows += [p["device"].iloc[d]] * len(v_txt)
         v_rows += v_txt
         i_rows += i_txt
@@ -416,7 +416,7 @@ def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
 
 # --------------------------------------------------------------------------- capacitance
 
-def _cv_readings(sel: pd.DataFrame, rng) -> np.ndarray:
+def cv_readings(sel: pd.DataFrame, rng) -> np.ndarray:
     """Measured C at CV_VOLTAGES (devices, biases) [F]: LCR meter gain and offset noise."""
     c = junction_capacitance(CV_VOLTAGES[None, :], sel["cjo_F"].to_numpy()[:, None],
                              sel["vj_V"].to_numpy()[:, None], sel["m"].to_numpy()[:, None])
@@ -429,7 +429,7 @@ def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
     rng = np.random.default_rng([seed, 4])
     out = {}
     sel = p[p["capacitance"] != ""].reset_index(drop=True)
-    c = _cv_readings(sel, rng)
+    c = cv_readings(sel, rng)
     k = len(CV_VOLTAGES)
     for j, sl in enumerate(_chunks(len(sel), 80), start=1):
         part = sel.iloc[sl]
@@ -438,8 +438,8 @@ def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
                 f"C-V, devices {part['device'].iloc[0]}-{part['device'].iloc[-1]}: LCR meter "
                 f"at 1 MHz, 30 mV test signal, open-corrected, room at 25 C"]
         cols = [list(np.repeat(part["device"].to_numpy(), k)),
-                _fixed(np.tile(CV_VOLTAGES, nd), 1),
-                _fixed(c[sl].ravel() * 1e12, 4),
+                fixed_text(np.tile(CV_VOLTAGES, nd), 1),
+                fixed_text(c[sl].ravel() * 1e12, 4),
                 [f"{CV_FREQUENCY:.0f}"] * (nd * k)]
         out[f"capacitance/cv_{j:02d}.csv"] = _csv(
             head, ["device", "reverse_voltage_V", "capacitance_pF", "frequency_Hz"], cols)
@@ -485,7 +485,7 @@ def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
             "VNA one-port reflection files: 51 points 10 MHz..1 GHz, 50 ohm; device 'open' "
             "is the empty fixture at that bias"]
     cols = [[r[0] for r in index_rows], [r[1] for r in index_rows],
-            _fixed([r[2] for r in index_rows], 1), ["reflection"] * len(index_rows)]
+            fixed_text([r[2] for r in index_rows], 1), ["reflection"] * len(index_rows)]
     out["capacitance/index.csv"] = _csv(
         head, ["file", "device", "reverse_voltage_V", "fixture"], cols)
     return out
@@ -493,7 +493,7 @@ def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
 
 # --------------------------------------------------------------------------- recovery
 
-def _recovery_readings(sel: pd.DataFrame, t: np.ndarray, rng) -> np.ndarray:
+def recovery_readings(sel: pd.DataFrame, t: np.ndarray, rng) -> np.ndarray:
     """Scope samples of the recovery current at times ``t`` (1, samples) [A], per device."""
     nd = len(sel)
     col = lambda name: sel[name].to_numpy()[:, None]
@@ -517,9 +517,9 @@ def _recovery_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
     out = {}
     sel = p[p["recovery"]].reset_index(drop=True)
     nd = len(sel)
-    t_text = _fixed((RECOVERY_START + RECOVERY_STEP * np.arange(RECOVERY_SAMPLES)) * 1e9, 1)
-    t = _parsed(t_text)[None, :] * 1e-9
-    i = _recovery_readings(sel, t, rng)
+    t_text = fixed_text((RECOVERY_START + RECOVERY_STEP * np.arange(RECOVERY_SAMPLES)) * 1e9, 1)
+    t = as_read(t_text)[None, :] * 1e-9
+    i = recovery_readings(sel, t, rng)
     k = RECOVERY_SAMPLES
     for j, sl in enumerate(_chunks(nd, 25), start=1):
         part = sel.iloc[sl]
@@ -530,7 +530,7 @@ def _recovery_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
                 "time_ns is 0 near the zero crossing of the current; positive current "
                 "is forward"]
         cols = [list(np.repeat(part["device"].to_numpy(), k)), list(np.tile(t_text, m)),
-                _fixed(i[sl].ravel() * 1e3, 3)]
+                fixed_text(i[sl].ravel() * 1e3, 3)]
         out[f"recovery/rr_{j:02d}.csv"] = _csv(head, ["device", "time_ns", "current_mA"],
                                                cols)
     return out
@@ -582,7 +582,7 @@ def _truth_file(p: pd.DataFrame, reel: str) -> str:
                  "generation_current_A", "shunt_resistance_ohm", "bv_V", "nbv",
                  "package_inductance_H"):
         header.append(name)
-        cols.append(_sci(p[name], 5))
+        cols.append(sci_text(p[name], 5))
     return _csv(head, header, cols)
 
 

@@ -31,12 +31,13 @@ import pandas as pd
 from kinset.demo import (CV_FREQUENCY, CV_VOLTAGES, FIXTURE_CAPACITANCE,
                          FIXTURE_LOSS_TANGENT, FORWARD_NOISE_V, LEAKAGE_COMPLIANCE,
                          RECOVERY_START, VNA_FREQUENCIES, VNA_NOISE, VNA_VOLTAGES, Z0,
-                         _compliance_voltage, _cv_readings, _fixed, _leakage_readings,
-                         _parsed, _recovery_readings, _sci, _sweep_voltages)
+                         as_read, compliance_voltage, cv_readings, fixed_text,
+                         leakage_readings, recovery_readings, sci_text, sweep_voltages)
 from kinset.io.output import atomic_output
 from kinset.physics.capacitance import (junction_capacitance, reflection_coefficient,
                                         series_rlc_impedance)
 from kinset.physics.constants import ZERO_CELSIUS
+from kinset.registry import DATASETS
 
 BATCH_PARTS = 250
 LAYOUTS = ("batches", "per-part")
@@ -47,7 +48,7 @@ LEAKAGE_VOLTAGES = np.array([1, 2, 3, 4, 5, 6, 7, 8, 10, 12, 14, 16, 18, 20, 22,
 RECOVERY_SAMPLES = 2000
 RECOVERY_STEP = 0.02e-9                                                  # [s]
 VNA_SHARE = 0.1                                                          # of the parts
-PREFIX = {"forward": "fwd", "leakage": "leak", "capacitance": "cv", "recovery": "rr"}
+PREFIX = {d.name: d.short for d in DATASETS}                           # file name stems
 
 
 # --------------------------------------------------------------------------- text in bulk
@@ -140,8 +141,8 @@ def _batches(p: pd.DataFrame):
 
 def forward_files(p: pd.DataFrame, seed: int, reel: str, layout: str, out) -> None:
     rng = np.random.default_rng([seed, 12])
-    cur_text = _sci(FORWARD_CURRENTS, 4)
-    cur = _parsed(cur_text)
+    cur_text = sci_text(FORWARD_CURRENTS, 4)
+    cur = as_read(cur_text)
     k = len(cur)
     w = _Writer(out, "forward", layout, reel,
                 ["device", "position", "current_A", "voltage_V", "temperature_C"],
@@ -151,9 +152,9 @@ def forward_files(p: pd.DataFrame, seed: int, reel: str, layout: str, out) -> No
     cur_col = _text(cur_text)
     for j, sel in _batches(p):
         nd = len(sel)
-        amb_text = _fixed(25.0 + 0.15 * rng.standard_normal(nd), 1)
-        amb = _parsed(amb_text)[:, None] + ZERO_CELSIUS
-        volt = _sweep_voltages(sel, cur[None, :], amb)
+        amb_text = fixed_text(25.0 + 0.15 * rng.standard_normal(nd), 1)
+        amb = as_read(amb_text)[:, None] + ZERO_CELSIUS
+        volt = sweep_voltages(sel, cur[None, :], amb)
         volt = volt + FORWARD_NOISE_V * rng.standard_normal(volt.shape)
         dev = sel["device"].to_numpy()
         body, lengths = _rows([_repeat(_text(dev), k),
@@ -174,7 +175,7 @@ def leakage_files(p: pd.DataFrame, seed: int, reel: str, layout: str, out) -> No
     k = len(LEAKAGE_VOLTAGES)
     for j, sel in _batches(p):
         nd = len(sel)
-        temp_text, args, cur, noisy, v_noise, i_noise = _leakage_readings(
+        temp_text, args, cur, noisy, v_noise, i_noise = leakage_readings(
             sel, LEAKAGE_VOLTAGES, rng)
         over = cur >= LEAKAGE_COMPLIANCE
         stop = np.where(over.any(axis=1), over.argmax(axis=1), k)
@@ -183,14 +184,14 @@ def leakage_files(p: pd.DataFrame, seed: int, reel: str, layout: str, out) -> No
         i = np.hstack([noisy, np.zeros((nd, 1))])
         for d in np.flatnonzero(stop < k):
             lo = LEAKAGE_VOLTAGES[stop[d] - 1] if stop[d] else 0.0
-            v[d, stop[d]] = _compliance_voltage(args, d, lo, LEAKAGE_VOLTAGES[stop[d]]) \
+            v[d, stop[d]] = compliance_voltage(args, d, lo, LEAKAGE_VOLTAGES[stop[d]]) \
                 + 1e-3 * v_noise[d]
             i[d, stop[d]] = LEAKAGE_COMPLIANCE * (1 + 2e-4 * i_noise[d])
         keep = np.arange(k + 1)[None, :] < np.where(stop < k, stop + 1, k)[:, None]
         count = keep.sum(axis=1)
         dev = sel["device"].to_numpy()
         body, lengths = _rows([_repeat(_text(dev), count), _numbers(v[keep], 3),
-                               _text(_sci(i[keep], 4)), _repeat(_text(temp_text), count)])
+                               _text(sci_text(i[keep], 4)), _repeat(_text(temp_text), count)])
         w.add(dev, j, body, lengths, count)
 
 
@@ -200,10 +201,10 @@ def capacitance_files(p: pd.DataFrame, seed: int, reel: str, layout: str, out) -
     w = _Writer(out, "capacitance", layout, reel,
                 ["device", "reverse_voltage_V", "capacitance_pF", "frequency_Hz"],
                 ["C-V", "LCR meter at 1 MHz, 30 mV test signal, open-corrected, room at 25 C"])
-    bias, freq = _text(_fixed(CV_VOLTAGES, 1)), _text([f"{CV_FREQUENCY:.0f}"])
+    bias, freq = _text(fixed_text(CV_VOLTAGES, 1)), _text([f"{CV_FREQUENCY:.0f}"])
     for j, sel in _batches(p):
         nd = len(sel)
-        c = _cv_readings(sel, rng)
+        c = cv_readings(sel, rng)
         dev = sel["device"].to_numpy()
         body, lengths = _rows([_repeat(_text(dev), k), _tile(bias, nd),
                                _numbers(c * 1e12, 4), _tile(freq, nd * k)])
@@ -259,8 +260,8 @@ def _vna_files(vna: pd.DataFrame, seed: int, reel: str, out) -> None:
 def recovery_files(p: pd.DataFrame, seed: int, reel: str, layout: str, out) -> None:
     rng = np.random.default_rng([seed, 16])
     k = RECOVERY_SAMPLES
-    t_text = _fixed((RECOVERY_START + RECOVERY_STEP * np.arange(k)) * 1e9, 2)
-    t = _parsed(t_text)[None, :] * 1e-9
+    t_text = fixed_text((RECOVERY_START + RECOVERY_STEP * np.arange(k)) * 1e9, 2)
+    t = as_read(t_text)[None, :] * 1e-9
     w = _Writer(out, "recovery", layout, reel, ["device", "time_ns", "current_mA"],
                 ["reverse recovery", f"IF = IR = 10 mA (see reel.yaml), sampling scope, "
                  f"{k} samples 20 ps apart, current from the voltage across 50 ohm",
@@ -269,7 +270,7 @@ def recovery_files(p: pd.DataFrame, seed: int, reel: str, layout: str, out) -> N
     time_col = _text(t_text)
     for j, sel in _batches(p):
         nd = len(sel)
-        i = _recovery_readings(sel, t, rng)
+        i = recovery_readings(sel, t, rng)
         dev = sel["device"].to_numpy()
         body, lengths = _rows([_repeat(_text(dev), k), _tile(time_col, nd),
                                _numbers(i * 1e3, 3)])

@@ -4,10 +4,12 @@ from __future__ import annotations
 
 import pandas as pd
 
+from kinset.registry import NAMES
+
 # Columns every dataset table has; in devices.csv they are always prefixed by
 # the dataset so the names do not depend on which datasets a reel carries.
 SHARED = {"status", "note", "points", "position", "reference_temperature_C"}
-ORDER = ("forward", "leakage", "capacitance", "recovery")
+ORDER = NAMES    # devices.csv: the datasets' columns in the registry's order
 
 
 def merge_devices(tables: dict[str, pd.DataFrame]) -> pd.DataFrame:

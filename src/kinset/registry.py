@@ -34,6 +34,7 @@ class Dataset:
 
     name: str
     label: str
+    short: str          # in generated file names (the demo writer's batch files: fwd_b0001.csv)
     reader: str
     extractor: str
     settings_used: tuple[str, ...]
@@ -60,21 +61,21 @@ class Dataset:
 
 
 DATASETS: tuple[Dataset, ...] = (
-    Dataset("forward", "forward V–I", "kinset.io.datasets:read_forward",
+    Dataset("forward", "forward V–I", "fwd", "kinset.io.datasets:read_forward",
             "kinset.extract:extract_forward",
             ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
              "thermal_resistance_K_per_W", "self_heating"),
             side_tables=("readings",)),
-    Dataset("leakage", "reverse leakage", "kinset.io.datasets:read_leakage",
+    Dataset("leakage", "reverse leakage", "leak", "kinset.io.datasets:read_leakage",
             "kinset.extract:extract_leakage",
             ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
              "accuracy", "leakage")),
-    Dataset("capacitance", "junction capacitance", "kinset.io.datasets:read_capacitance",
+    Dataset("capacitance", "junction capacitance", "cv", "kinset.io.datasets:read_capacitance",
             "kinset.extract:extract_capacitance",
             ("reference_temperature_C", "ambient_temperature_C", "accuracy", "capacitance"),
             side_tables=("points",),
             panel_columns=(("cj0_F", "zero-bias capacitance CJO", "F"),)),
-    Dataset("recovery", "reverse recovery", "kinset.io.datasets:read_recovery",
+    Dataset("recovery", "reverse recovery", "rr", "kinset.io.datasets:read_recovery",
             "kinset.extract:extract_recovery", ("recovery",)),
 )
 

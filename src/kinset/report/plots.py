@@ -277,6 +277,119 @@ def _fwd_voltage(row: dict, current: np.ndarray, temperature: float | None = Non
     return voltage_from_current(current, i_s, _f(row, "n"), _f(row, "rs_ohm"), t)
 
 
+def _forward_panel(ax, members, style, currents):
+    """Measured readings (at TNOM) and fitted forward curves of each member."""
+    for m in members:
+        color, marker = style[m.device]
+        if m.readings is not None:
+            i, v, used, t = m.readings
+            if _fitted(m.forward) and np.isfinite(t).all():
+                # Readings taken warmer or cooler (or self-heated) moved to TNOM with the
+                # part's own fitted law, so that every curve and point is at one temperature.
+                v = v + _fwd_voltage(m.forward, i) - _fwd_voltage(m.forward, i, t)
+            ax.plot(v[used], i[used], linestyle="none", marker=marker, color=color,
+                    markerfacecolor="none", markeredgewidth=0.7)
+            if (~used).any():
+                ax.plot(v[~used], i[~used], linestyle="none", marker=marker, color=GRID,
+                        markeredgewidth=0.7, markerfacecolor="none")
+        if _fitted(m.forward):
+            cur = np.logspace(np.log10(_f(m.forward, "i_min_A")),
+                              np.log10(_f(m.forward, "i_max_A")), 60)
+            ax.plot(_fwd_voltage(m.forward, cur), cur, color=color, label=_label(m.device))
+        else:
+            ax.plot([], [], color=color, marker=marker, linestyle="none",
+                    markerfacecolor="none", label=f"{_label(m.device)} (points only)")
+    for c in currents:
+        ax.axhline(c, color=LIMIT, linewidth=0.6, linestyle=":")
+    ax.set_yscale("log")
+    _log_axis(ax.yaxis, "A")
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v * 1e3:.0f}"))
+    ax.set_xlabel("forward voltage [mV]")
+    ax.set_ylabel("current")
+    ax.set_title("forward: readings (markers) and fitted model, at TNOM", loc="left")
+    ax.legend(loc="upper left")
+
+
+def _deviation_panel(ax, fitted, style, currents, temperature):
+    """Each member's fitted forward voltage minus the set's mean, over the common range."""
+    lo = max(_f(m.forward, "i_min_A") for m in fitted)
+    hi = min(_f(m.forward, "i_max_A") for m in fitted)
+    if hi > lo:
+        cur = np.logspace(np.log10(lo), np.log10(hi), 80)
+        volts = np.array([_fwd_voltage(m.forward, cur, temperature) for m in fitted])
+        mean = volts.mean(axis=0)
+        for m, v in zip(fitted, volts):
+            ax.plot(cur, (v - mean) * 1e3, color=style[m.device][0], label=_label(m.device))
+        ax.set_xscale("log")
+        _log_axis(ax.xaxis, "A")
+        for c in currents:
+            ax.axvline(c, color=LIMIT, linewidth=0.6, linestyle=":")
+    else:
+        ax.text(0.5, 0.5, "the fitted ranges do not overlap", ha="center",
+                transform=ax.transAxes)
+    ax.set_xlabel("current")
+    ax.set_ylabel("V \u2212 set mean [mV]")
+    ax.set_title(f"forward voltage minus the set's mean, at {temperature - ZERO_CELSIUS:g} \u00b0C",
+                 loc="left")
+
+
+def _cv_panel(ax, members, style):
+    """C–V points and fitted depletion law of each member."""
+    vmax = 0.0
+    for m in members:
+        color, marker = style[m.device]
+        if m.cv_points is not None:
+            vr, c, used = m.cv_points
+            ax.plot(vr[used], c[used] * 1e12, linestyle="none", marker=marker, color=color,
+                    markerfacecolor="none", markeredgewidth=0.7)
+            vmax = max(vmax, float(np.nanmax(vr)) if len(vr) else 0.0)
+        cap = m.capacitance
+        if cap is not None and str(cap.get("status")) != "rejected" and all(
+                math.isfinite(_f(cap, k)) for k in ("cj0_F", "vj_V", "m")):
+            top = _f(cap, "vr_max_V")
+            top = top if math.isfinite(top) and top > 0 else max(vmax, 1.0)
+            vmax = max(vmax, top)
+            vr = np.linspace(max(_f(cap, "vr_min_V"), 0.0) if math.isfinite(
+                _f(cap, "vr_min_V")) else 0.0, top, 60)
+            c = junction_capacitance(vr, _f(cap, "cj0_F"), _f(cap, "vj_V"), _f(cap, "m"))
+            cp = _f(cap, "cp_F")
+            ax.plot(vr, (c + (cp if math.isfinite(cp) else 0.0)) * 1e12, color=color,
+                    label=_label(m.device))
+    ax.set_xlabel("reverse voltage [V]")
+    ax.set_ylabel("capacitance [pF]")
+    ax.set_title("C\u2013V: points (markers) and fitted law (line)", loc="left")
+
+
+def _recovery_panel(ax, members, style):
+    """The recovery model of each member's fit, with a marker at trr."""
+    rec = [m for m in members if m.recovery is not None and math.isfinite(_f(m.recovery, "tt_s"))]
+    t0 = min(_f(m.recovery, "t0_s") if math.isfinite(_f(m.recovery, "t0_s")) else 0.0
+             for m in rec)
+    span = max(_f(m.recovery, "trr_s") if math.isfinite(_f(m.recovery, "trr_s")) else
+               3 * _f(m.recovery, "tt_s") for m in rec)
+    t = np.linspace(t0 - 0.3 * span, t0 + 1.8 * span, 240)
+    for m in rec:
+        r = m.recovery
+        i_f = _f(r, "if_A") if math.isfinite(_f(r, "if_A")) else _f(r, "if_set_A")
+        i_r = _f(r, "ir_A") if math.isfinite(_f(r, "ir_A")) else _f(r, "ir_set_A")
+        tau = _f(r, "decay_tau_s")
+        sw = _f(r, "t0_s") if math.isfinite(_f(r, "t0_s")) else 0.0
+        if not all(math.isfinite(x) for x in (i_f, i_r)):
+            continue
+        i = recovery_waveform(t, i_f, i_r, _f(r, "tt_s"), tau if math.isfinite(tau) else 0.0,
+                              0.0, switch_time=sw)
+        color, marker = style[m.device]
+        ax.plot((t - t0) * 1e9, i * 1e3, color=color, label=_label(m.device))
+        trr = _f(r, "trr_s")
+        if math.isfinite(trr):
+            k = np.argmin(np.abs(t - (sw + trr)))
+            ax.plot([(t[k] - t0) * 1e9], [i[k] * 1e3], marker=marker, color=color,
+                    markerfacecolor="none", linestyle="none")
+    ax.set_xlabel("time from the current's zero crossing [ns]")
+    ax.set_ylabel("current [mA]")
+    ax.set_title("recovery: model of each part's fit, marker at trr", loc="left")
+
+
 @styled
 def set_figure(members: list[Member], currents: list[float], temperature: float,
                key: str, label: str) -> str:
@@ -303,110 +416,18 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
 
     if has_fwd:
         ax = next(it)
-        for m in members:
-            color, marker = style[m.device]
-            if m.readings is not None:
-                i, v, used, t = m.readings
-                if _fitted(m.forward) and np.isfinite(t).all():
-                    # Readings taken warmer or cooler (or self-heated) moved to TNOM with the
-                    # part's own fitted law, so that every curve and point is at one temperature.
-                    v = v + _fwd_voltage(m.forward, i) - _fwd_voltage(m.forward, i, t)
-                ax.plot(v[used], i[used], linestyle="none", marker=marker, color=color,
-                        markerfacecolor="none", markeredgewidth=0.7)
-                if (~used).any():
-                    ax.plot(v[~used], i[~used], linestyle="none", marker=marker, color=GRID,
-                            markeredgewidth=0.7, markerfacecolor="none")
-            if _fitted(m.forward):
-                cur = np.logspace(np.log10(_f(m.forward, "i_min_A")),
-                                  np.log10(_f(m.forward, "i_max_A")), 60)
-                ax.plot(_fwd_voltage(m.forward, cur), cur, color=color, label=_label(m.device))
-            else:
-                ax.plot([], [], color=color, marker=marker, linestyle="none",
-                        markerfacecolor="none", label=f"{_label(m.device)} (points only)")
-        for c in currents:
-            ax.axhline(c, color=LIMIT, linewidth=0.6, linestyle=":")
-        ax.set_yscale("log")
-        _log_axis(ax.yaxis, "A")
-        ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v * 1e3:.0f}"))
-        ax.set_xlabel("forward voltage [mV]")
-        ax.set_ylabel("current")
-        ax.set_title("forward: readings (markers) and fitted model, at TNOM", loc="left")
-        ax.legend(loc="upper left")
+        _forward_panel(ax, members, style, currents)
 
     if len(fitted) >= 2:
         ax = next(it)
-        lo = max(_f(m.forward, "i_min_A") for m in fitted)
-        hi = min(_f(m.forward, "i_max_A") for m in fitted)
-        if hi > lo:
-            cur = np.logspace(np.log10(lo), np.log10(hi), 80)
-            volts = np.array([_fwd_voltage(m.forward, cur, temperature) for m in fitted])
-            mean = volts.mean(axis=0)
-            for m, v in zip(fitted, volts):
-                ax.plot(cur, (v - mean) * 1e3, color=style[m.device][0], label=_label(m.device))
-            ax.set_xscale("log")
-            _log_axis(ax.xaxis, "A")
-            for c in currents:
-                ax.axvline(c, color=LIMIT, linewidth=0.6, linestyle=":")
-        else:
-            ax.text(0.5, 0.5, "the fitted ranges do not overlap", ha="center",
-                    transform=ax.transAxes)
-        ax.set_xlabel("current")
-        ax.set_ylabel("V \u2212 set mean [mV]")
-        ax.set_title(f"forward voltage minus the set's mean, at {temperature - ZERO_CELSIUS:g} \u00b0C",
-                     loc="left")
+        _deviation_panel(ax, fitted, style, currents, temperature)
 
     if has_cv:
         ax = next(it)
-        vmax = 0.0
-        for m in members:
-            color, marker = style[m.device]
-            if m.cv_points is not None:
-                vr, c, used = m.cv_points
-                ax.plot(vr[used], c[used] * 1e12, linestyle="none", marker=marker, color=color,
-                        markerfacecolor="none", markeredgewidth=0.7)
-                vmax = max(vmax, float(np.nanmax(vr)) if len(vr) else 0.0)
-            cap = m.capacitance
-            if cap is not None and str(cap.get("status")) != "rejected" and all(
-                    math.isfinite(_f(cap, k)) for k in ("cj0_F", "vj_V", "m")):
-                top = _f(cap, "vr_max_V")
-                top = top if math.isfinite(top) and top > 0 else max(vmax, 1.0)
-                vmax = max(vmax, top)
-                vr = np.linspace(max(_f(cap, "vr_min_V"), 0.0) if math.isfinite(
-                    _f(cap, "vr_min_V")) else 0.0, top, 60)
-                c = junction_capacitance(vr, _f(cap, "cj0_F"), _f(cap, "vj_V"), _f(cap, "m"))
-                cp = _f(cap, "cp_F")
-                ax.plot(vr, (c + (cp if math.isfinite(cp) else 0.0)) * 1e12, color=color,
-                        label=_label(m.device))
-        ax.set_xlabel("reverse voltage [V]")
-        ax.set_ylabel("capacitance [pF]")
-        ax.set_title("C\u2013V: points (markers) and fitted law (line)", loc="left")
+        _cv_panel(ax, members, style)
 
     if has_rr:
         ax = next(it)
-        rec = [m for m in members if m.recovery is not None and math.isfinite(_f(m.recovery, "tt_s"))]
-        t0 = min(_f(m.recovery, "t0_s") if math.isfinite(_f(m.recovery, "t0_s")) else 0.0
-                 for m in rec)
-        span = max(_f(m.recovery, "trr_s") if math.isfinite(_f(m.recovery, "trr_s")) else
-                   3 * _f(m.recovery, "tt_s") for m in rec)
-        t = np.linspace(t0 - 0.3 * span, t0 + 1.8 * span, 240)
-        for m in rec:
-            r = m.recovery
-            i_f = _f(r, "if_A") if math.isfinite(_f(r, "if_A")) else _f(r, "if_set_A")
-            i_r = _f(r, "ir_A") if math.isfinite(_f(r, "ir_A")) else _f(r, "ir_set_A")
-            tau = _f(r, "decay_tau_s")
-            sw = _f(r, "t0_s") if math.isfinite(_f(r, "t0_s")) else 0.0
-            if not all(math.isfinite(x) for x in (i_f, i_r)):
-                continue
-            i = recovery_waveform(t, i_f, i_r, _f(r, "tt_s"), tau if math.isfinite(tau) else 0.0,
-                                  0.0, switch_time=sw)
-            color, marker = style[m.device]
-            ax.plot((t - t0) * 1e9, i * 1e3, color=color, label=_label(m.device))
-            trr = _f(r, "trr_s")
-            if math.isfinite(trr):
-                k = np.argmin(np.abs(t - (sw + trr)))
-                ax.plot([(t[k] - t0) * 1e9], [i[k] * 1e3], marker=marker, color=color,
-                        markerfacecolor="none", linestyle="none")
-        ax.set_xlabel("time from the current's zero crossing [ns]")
-        ax.set_ylabel("current [mA]")
-        ax.set_title("recovery: model of each part's fit, marker at trr", loc="left")
+        _recovery_panel(ax, members, style)
+
     return svg_text(fig, key, label)

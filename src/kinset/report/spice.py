@@ -27,6 +27,7 @@ import re
 
 import pandas as pd
 
+from kinset.registry import NAMES
 from kinset.report.inputs import rows_by_device
 
 MAX_NAME = 32
@@ -103,7 +104,9 @@ def device_parameters(device: str, rows: dict[str, dict | None], reel: dict
     """
     params: dict[str, float] = {}
     notes: list[str] = []
-    fwd, cap, rec, leak = (rows.get(k) for k in ("forward", "capacitance", "recovery", "leakage"))
+    # the card's parameters come from these datasets' fits: IS N RS; CJO VJ M; TT; BV
+    fwd, cap = rows.get("forward"), rows.get("capacitance")
+    rec, leak = rows.get("recovery"), rows.get("leakage")
     tnom = None
     fit = {k: _finite(fwd, c) for k, c in (("IS", "is_A"), ("N", "n"), ("RS", "rs_ohm"))} \
         if _usable(fwd) else {}
@@ -182,7 +185,7 @@ def _position_text(pos) -> str:
 def models_lib(sets: pd.DataFrame, tables: dict[str, pd.DataFrame], reel: dict,
                title: str, version: str) -> tuple[str, dict[str, str]]:
     """The text of ``models.lib`` and the model name of each placed device."""
-    rows = {k: rows_by_device(tables.get(k)) for k in ("forward", "capacitance", "recovery", "leakage")}
+    rows = {k: rows_by_device(tables.get(k)) for k in NAMES}
     order = sets.sort_values(["set"], kind="stable")
     names = model_names(order["device"].astype(str))
     tnom = reel.get("reference_temperature_C")
