@@ -59,14 +59,6 @@ def demo_results(folder: Path, devices: int = 40, seed: int = 412, markup_id: bo
     return out
 
 
-def _stage(reasons: list[str]) -> str:
-    """The stage a part left at, from its first reason (the matcher's wording)."""
-    first = reasons[0] if reasons else ""
-    rules = (("screen", first.startswith("screen:")), ("guard", "guard band" in first),
-             ("sets", first.startswith(("no other part", "only ", "its compatible"))))
-    return next((stage for stage, hit in rules if hit), "data")
-
-
 def stand_in_match(results: Path, application: str, out: Path,
                    extra_unmatched: list[tuple[str, str]] = ()) -> dict:
     """Write sets.csv, unmatched.csv, values.csv, summary.json for ``application`` (see

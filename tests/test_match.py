@@ -165,3 +165,40 @@ def test_dense_reel_sets_are_valid_and_within_proven_limits():
     assert len(res.sets) <= res.upper_bound
     assert len(res.sets) <= limit
     assert len(res.sets) >= 0.8 * min(res.upper_bound, limit)   # near the bound, not a token effort
+
+
+def test_a_part_measured_at_one_bias_is_matched_on_its_measured_capacitance(tmp_path):
+    """The capacitance points table reaches the matcher: a part with a single C–V point
+    (too few biases for a depletion-law fit) serves the profile's bias from that point."""
+    from kinset.io.output import write_csv
+    from kinset.matching.run import run_match
+    from kinset.physics.capacitance import junction_capacitance
+    results = tmp_path / "results"
+    results.mkdir()
+    # A: a fitted law; B: one point at 0 V, 8 fF above A's CJO (inside a 50 fF tolerance)
+    write_csv(pd.DataFrame({
+        "device": ["A", "B"], "status": ["ok", "warning"],
+        "note": ["", "only 1 reverse bias(es): too few for the law"],
+        "cj0_F": [1.0e-12, np.nan], "vj_V": [0.7, np.nan], "m": [0.45, np.nan],
+        "fit_rms_F": [1e-15, np.nan], "vr_min_V": [0.0, 0.0], "vr_max_V": [5.0, 0.0]}),
+        results / "capacitance.csv")
+    write_csv(pd.DataFrame({"device": ["B", "B"], "reverse_voltage_V": [0.0, 2.0],
+                            "capacitance_F": [1.008e-12, 0.6e-12], "used": [1, 0]}),
+              results / "capacitance_points.csv")
+    p = tmp_path / "cap.yaml"
+    p.write_text("set_size: 2\nguard_band: none\nmatch:\n"
+                 "  - {quantity: capacitance, at_reverse_voltage_V: 0, tolerance_F: 5.0e-14}\n")
+    result = run_match(results, str(p), tmp_path / "out")
+    values = pd.read_csv(tmp_path / "out" / "values.csv").set_index("device")
+    # CJO/(1 + 0/VJ)^M = CJO at 0 V (closed form); B's value is its own point as written
+    assert values.loc["A", "capacitance_at_0V"] == pytest.approx(
+        junction_capacitance(0.0, 1.0e-12, 0.7, 0.45), rel=1e-12)
+    assert values.loc["B", "capacitance_at_0V"] == pytest.approx(1.008e-12, rel=1e-12)
+    assert sorted(result.sets["device"]) == ["A", "B"]
+    # a point left out of the fit (used = 0) never serves
+    p.write_text("set_size: 2\nguard_band: none\nmatch:\n"
+                 "  - {quantity: capacitance, at_reverse_voltage_V: 2, tolerance_F: 5.0e-14}\n")
+    result = run_match(results, str(p), tmp_path / "out2")
+    assert result.sets.empty
+    un = pd.read_csv(tmp_path / "out2" / "unmatched.csv").set_index("device")
+    assert un.loc["B", "reason_code"] == "no_point" and un.loc["B", "stage"] == "data"
