@@ -128,10 +128,8 @@ def forward_voltage(devices: pd.DataFrame, current: float, temperature: float,
     ----------
     devices : DataFrame
         The forward extraction table (``forward.csv``).
-    current : float
-        Forward current [A].
-    temperature : float
-        Junction temperature [K].
+    current, temperature : float
+        Forward current [A] and junction temperature [K].
     readings : DataFrame, optional
         The readings table (``forward_readings.csv``). Devices with one or two
         readings have no fitted model; a reading serves when it was taken within

@@ -70,36 +70,31 @@ def read_forward(path: str | Path) -> pd.DataFrame:
     return frame[["device", "voltage", "current", "temperature", "position", "source", "line"]]
 
 
+def _read_with(path: str | Path, spec: Spec, optional: tuple[str, ...]) -> pd.DataFrame:
+    """The file read by ``spec``, with each ``optional`` quantity it lacks as NaN."""
+    frame = read_table(str(path), spec)
+    for col in optional:
+        if col not in frame:
+            frame[col] = np.nan
+    return frame
+
+
 def read_leakage(path: str | Path) -> pd.DataFrame:
     """Read a reverse-leakage sweep file (positive magnitudes)."""
-    frame = read_table(str(path), LEAKAGE)
-    if "temperature" not in frame:
-        frame["temperature"] = np.nan
-    return frame
+    return _read_with(path, LEAKAGE, ("temperature",))
 
 
 def read_capacitance(path: str | Path) -> pd.DataFrame:
     """Read a C–V table file."""
-    frame = read_table(str(path), CAPACITANCE)
-    for col in ("temperature", "frequency"):
-        if col not in frame:
-            frame[col] = np.nan
-    return frame
+    return _read_with(path, CAPACITANCE, ("temperature", "frequency"))
 
 
 def read_capacitance_index(path: str | Path) -> pd.DataFrame:
     """Read ``capacitance/index.csv``, the list of Touchstone files and their biases."""
-    frame = read_table(str(path), CAPACITANCE_INDEX)
-    if "temperature" not in frame:
-        frame["temperature"] = np.nan
-    return frame
+    return _read_with(path, CAPACITANCE_INDEX, ("temperature",))
 
 
 def read_recovery(path: str | Path) -> pd.DataFrame:
     """Read a reverse-recovery waveform file (positive current = forward)."""
-    frame = read_table(str(path), RECOVERY)
-    for col in ("forward_current", "reverse_current"):
-        if col not in frame:
-            frame[col] = np.nan
-    return frame
+    return _read_with(path, RECOVERY, ("forward_current", "reverse_current"))
 

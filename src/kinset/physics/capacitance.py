@@ -230,21 +230,8 @@ def series_admittance(s21, reference_impedance=50.0, reference_impedance_2=None)
 def shunt_admittance(s21, reference_impedance=50.0, reference_impedance_2=None):
     """Admittance of a device from the line to ground in a two-port fixture.
 
-    Parameters
-    ----------
-    s21 : array_like of complex
-        Transmission coefficient S21 [1].
-    reference_impedance : array_like, optional
-        Real reference impedance of port 1, Z01 [Ohm].
-    reference_impedance_2 : array_like, optional
-        Real reference impedance of port 2, Z02 [Ohm]; default Z01.
-
-    Returns
-    -------
-    admittance : numpy.ndarray of complex
-        Y [S].
-    derivative : numpy.ndarray of complex
-        dY/dS21 [S].
+    Parameters and returns as :func:`series_admittance`: S21 [1] and the ports' real
+    reference impedances Z01, Z02 [Ohm] in; Y [S] and dY/dS21 [S] out.
 
     Notes
     -----

@@ -122,8 +122,8 @@ def voltage_from_log_current(log_current, log_saturation_current, ideality,
 
     Returns
     -------
-    numpy.ndarray
-        Voltage [V].
+    voltage : numpy.ndarray
+        The same forward voltage [V].
 
     Notes
     -----
