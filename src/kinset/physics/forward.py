@@ -145,12 +145,9 @@ def current_from_voltage(voltage, saturation_current, ideality, resistance_serie
         Terminal voltage [V].
     saturation_current : array_like
         IS at ``temperature`` [A].
-    ideality : array_like
-        Emission coefficient N [1].
-    resistance_series : array_like
-        Series resistance RS [Ohm]; zero is allowed.
-    temperature : array_like
-        Junction temperature [K].
+    ideality, resistance_series, temperature : array_like
+        Emission coefficient N [1], series resistance RS [Ohm] (zero is allowed) and
+        junction temperature [K].
 
     Returns
     -------

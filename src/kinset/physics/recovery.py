@@ -66,10 +66,9 @@ def recovery_waveform(time, forward_current, reverse_current, transit_time,
     ----------
     time : array_like
         Sample times [s].
-    forward_current : array_like
-        Forward current IF before the switch [A].
-    reverse_current : array_like
-        Magnitude of the reverse drive current IR [A].
+    forward_current, reverse_current : array_like
+        Forward current IF before the switch, and the magnitude of the reverse drive
+        current IR after it [A].
     transit_time : array_like
         Transit time TT [s].
     recovery_tau : array_like
