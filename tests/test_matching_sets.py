@@ -1,4 +1,4 @@
-"""Set forming (kinset.matching.sets) against independent references.
+"""Set forming (kinset.matching) against independent references.
 
 References used, named beside each check:
 * the set-packing optimum, formulated here from scratch: valid sets found by
@@ -18,8 +18,9 @@ from hypothesis import strategies as st
 from scipy.optimize import Bounds, LinearConstraint, linprog, milp
 from scipy.sparse import csc_matrix
 
-from kinset.matching.sets import (best_partners, form_sets, is_valid, set_cost,
-                                  sort_and_group)
+from kinset.matching.heuristics import sort_and_group
+from kinset.matching.partners import best_partners
+from kinset.matching.sets import form_sets, is_valid, set_cost
 from kinset.physics.forward import voltage_from_current
 
 T25 = 298.15
