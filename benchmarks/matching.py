@@ -23,7 +23,9 @@ import time
 import numpy as np
 from scipy.spatial import cKDTree
 
-from kinset.matching.sets import compatibility, form_sets, sort_and_group
+from kinset.matching.graph import compatibility
+from kinset.matching.heuristics import sort_and_group
+from kinset.matching.sets import form_sets
 
 CRITERIA = 7
 

@@ -54,7 +54,7 @@ from kinset.registry import NAMES  # noqa: E402
 from kinset.io.reel import load_reel  # noqa: E402
 from kinset.matching.profile import load_profile  # noqa: E402
 from kinset.matching.run import candidates, read_results  # noqa: E402
-from kinset.matching.sets import sort_and_group  # noqa: E402
+from kinset.matching.heuristics import sort_and_group  # noqa: E402
 
 PY = sys.executable
 ENV = dict(os.environ, PYTHONPATH=os.pathsep.join(

@@ -9,9 +9,11 @@ import pytest
 from scipy.optimize import Bounds, LinearConstraint, milp
 from scipy.sparse import lil_matrix
 
+from kinset.errors import InputError
 from kinset.fitting.forward import ForwardSettings, fit_forward
 from kinset.matching.profile import load_profile
-from kinset.matching.run import match, partners
+from kinset.matching.partners import partner_table
+from kinset.matching.run import match
 from kinset.physics.forward import voltage_from_current
 
 T25 = 298.15
@@ -135,13 +137,40 @@ def test_partners_rank_the_closest_part_first(tmp_path):
     tables = tight_batch()
     devices = sorted(tables["forward"]["device"])
     prof = profile(tmp_path, 2, 1.5e-3)
-    table = partners(tables, devices, prof, "T000", accuracy={}, top=5)
+    table = partner_table(tables, devices, prof, "T000", accuracy={}, top=5)
     volts = recheck_voltages(tables, devices)
     me = volts[0]
     dist = np.abs(volts[1:] - me).sum(axis=1) / 1.5e-3
     assert table["device"].iloc[0] == devices[1 + int(np.argmin(dist))]
     margins = table[[c for c in table.columns if "_margin" in c]].to_numpy()
     assert (table["within"].to_numpy() == (margins >= 0).all(axis=1)).all()
+
+
+def test_partners_complete_a_set_among_the_available_parts(tmp_path):
+    # Reference: spreads re-computed from the voltages of the fitted parameters
+    # (physics.forward.voltage_from_current), and the available parts that make a valid
+    # trio with the two kept, found by plain numpy on those voltages.
+    tables = tight_batch()
+    devices = sorted(tables["forward"]["device"])
+    prof = profile(tmp_path, 3, 2.5e-3)
+    volts = recheck_voltages(tables, devices)
+    nearest = 1 + int(np.argmin(np.abs(volts[1:] - volts[0]).max(axis=1)))
+    kept = [0, nearest]
+    free = [d for i, d in enumerate(devices) if i not in kept][::2]
+    table = partner_table(tables, devices, prof, [devices[i] for i in kept], accuracy={},
+                          top=50, size=3, available=free)
+    trios = [d for d in free if np.all(np.ptp(volts[kept + [devices.index(d)]], axis=0) <= 2.5e-3)]
+    assert sorted(table["device"]) == sorted(free)          # every available part, ranked
+    assert sorted(table.loc[table["within"], "device"]) == sorted(trios)
+    for row in table.itertuples():
+        sp = np.ptp(volts[kept + [devices.index(row.device)]], axis=0)
+        got = [getattr(row, c) for c in table.columns if c.endswith("_spread_V")]
+        np.testing.assert_allclose(got, sp, rtol=1e-6, atol=1e-9)
+    assert np.all(np.diff(table["score"]) >= 0) and len(trios) >= 2
+    with pytest.raises(InputError, match="no extraction table"):
+        partner_table(tables, devices, prof, "T000", accuracy={}, available=["X9"])
+    with pytest.raises(InputError, match="twice"):
+        partner_table(tables, devices, prof, ["T000", "T000"], accuracy={})
 
 
 def test_dense_reel_sets_are_valid_and_within_proven_limits():

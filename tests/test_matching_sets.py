@@ -1,4 +1,4 @@
-"""Set forming (kinset.matching.sets) against independent references.
+"""Set forming (kinset.matching) against independent references.
 
 References used, named beside each check:
 * the set-packing optimum, formulated here from scratch: valid sets found by
@@ -18,8 +18,9 @@ from hypothesis import strategies as st
 from scipy.optimize import Bounds, LinearConstraint, linprog, milp
 from scipy.sparse import csc_matrix
 
-from kinset.matching.sets import (best_partners, form_sets, is_valid, set_cost,
-                                  sort_and_group)
+from kinset.matching.heuristics import sort_and_group
+from kinset.matching.partners import best_partners
+from kinset.matching.sets import form_sets, is_valid, set_cost
 from kinset.physics.forward import voltage_from_current
 
 T25 = 298.15
@@ -297,6 +298,50 @@ def test_best_partners_against_brute_force():
     busy = np.ones(70, bool)
     busy[ref[0]] = False
     assert ref[0] not in best_partners(v, w, i, available=busy).members
+
+
+def test_completing_a_partial_set_against_brute_force():
+    # Reference: every valid quad (itertools over a brute-force Chebyshev matrix) that
+    # holds the members kept, ranked by a plain numpy re-computation of its cost.
+    v = clustered_reel(70, 8, degree=10.0)
+    w = np.array([1.0, 0.3, 0.6])
+    quads = valid_sets_bruteforce(v, 4)
+    kept = quads[len(quads) // 2][:2].tolist()
+    cheb = np.abs(v[:, None, :] - v[None, kept, :]).max(axis=2).max(axis=1)
+    assert np.count_nonzero(cheb <= 1 + 1e-12) - 2 <= 60    # every candidate is seen
+    ref = []
+    for q in quads.tolist():
+        if set(kept) <= set(q):
+            box = v[q]
+            ref.append(((box.max(axis=0) - box.min(axis=0)) @ w, tuple(sorted(set(q) - set(kept)))))
+    ref.sort()
+    p = best_partners(v, w, kept, top=4, size=4)
+    assert [tuple(m) for m in p.members.tolist()] == [t for _, t in ref[:4]]
+    np.testing.assert_allclose(p.cost, [c for c, _ in ref[:4]])
+    assert p.within.all() and np.all(p.margin.min(axis=1) >= -1e-12)
+    # one part to add to three kept: every other part, ranked, with its own validity
+    three = quads[0][:3].tolist()
+    r = best_partners(v, w, three, top=70, size=4, within_only=False)
+    others = [j for j in range(70) if j not in three]
+    cost = [set_cost(v, w, three + [j]) for j in others]
+    assert r.members[:, 0].tolist() == [others[i] for i in np.lexsort((others, cost))]
+    assert r.within.tolist() == [bool(is_valid(v, three + [j])) for j in r.members[:, 0]]
+    # rows or a mask of available parts give the same answer
+    mask = np.zeros(70, bool)
+    mask[others[::2]] = True
+    a = best_partners(v, w, three, size=4, available=mask, within_only=False)
+    b = best_partners(v, w, three, size=4, available=np.flatnonzero(mask), within_only=False)
+    assert a.members.tolist() == b.members.tolist()
+    assert set(a.members.ravel()) <= set(others[::2])
+
+
+@pytest.mark.parametrize("given, size, available", [
+    (70, None, None), ([3, 3], None, None), ([], None, None), ([1, 2], 2, None),
+    (1, 2, np.ones(5, bool)), (1, 2, [0, 99])])
+def test_partner_requests_that_make_no_sense_are_refused(given, size, available):
+    v = clustered_reel(70, 8, degree=10.0)
+    with pytest.raises(ValueError):
+        best_partners(v, np.ones(3), given, size=size, available=available)
 
 
 def test_dense_component_falls_back_to_a_pool_with_a_size_bound():

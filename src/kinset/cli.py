@@ -67,13 +67,14 @@ def _cmd_match(args) -> None:
 def _cmd_partners(args) -> None:
     import pandas as pd
     from kinset.matching.profile import load_profile
-    from kinset.matching.run import partners, read_results
+    from kinset.matching.partners import partner_table
+    from kinset.matching.run import read_results
     tables, devices, reel = read_results(args.results)
     application = args.application or next(iter(reel.get("applications", [])), None)
     if application is None:
         raise InputError("give --application (the reel lists no applications)")
-    table = partners(tables, devices, load_profile(application), args.device,
-                     reel.get("accuracy"), args.top)
+    table = partner_table(tables, devices, load_profile(application), args.device,
+                          reel.get("accuracy"), args.top)
     with pd.option_context("display.width", 200, "display.max_columns", 50):
         print(f"best partners for {args.device} under {application}:")
         print(table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))

@@ -162,3 +162,21 @@ def spread(values: np.ndarray, dim: Dimension) -> float:
     if dim.relative:
         return float(values.max() / values.min() - 1.0)
     return float(values.max() - values.min())
+
+
+def column_suffix(dim) -> str:
+    """Unit suffix of a criterion's columns: ``_percent``, ``_<unit>`` or nothing."""
+    return "_percent" if dim.relative else (f"_{dim.unit}" if dim.unit else "")
+
+
+def spread_columns(block: np.ndarray, dims, tolerance: dict, word: str = "spread") -> dict:
+    """Each criterion's spread over the rows of ``block`` (SI values, one column per
+    criterion) and its margin to the effective tolerance, as ``<dim>_<word><suffix>``
+    and ``<dim>_margin<suffix>`` (percent for relative criteria)."""
+    row = {}
+    for j, d in enumerate(dims):
+        sp = spread(block[:, j], d)
+        scale = 100 if d.relative else 1
+        row[f"{d.name}_{word}{column_suffix(d)}"] = sp * scale
+        row[f"{d.name}_margin{column_suffix(d)}"] = (tolerance[d.name] - sp) * scale
+    return row

@@ -17,8 +17,8 @@ from scipy.spatial import cKDTree
 from kinset.errors import InputError
 from kinset.format import si
 from kinset.io.output import read_result, write_csv, write_text
-from kinset.matching.criteria import (effective_tolerance, evaluate, instrument_uncertainty,
-                                     normalise, spread)
+from kinset.matching.criteria import (column_suffix, effective_tolerance, evaluate,
+                                     instrument_uncertainty, normalise, spread_columns)
 from kinset.matching.profile import Profile, load_profile
 from kinset.matching.reasons import Reason, stage_of
 from kinset.matching.sets import form_sets
@@ -98,23 +98,14 @@ def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Pro
     return Candidates(ev, eff, cand, raw, z, accuracy_note, accuracy)
 
 
-def _spread_columns(dims) -> list[str]:
-    return [c for d in dims for c in (f"{d.name}_spread{_suffix(d)}", f"{d.name}_margin{_suffix(d)}")]
-
-
 def set_table(found: list, c: Candidates, dims) -> pd.DataFrame:
     """sets.csv without positions: each placed part with its set's spreads and margins."""
     rows = []
     for s, members in enumerate(found, start=1):
-        block = c.raw[members]
-        spreads = {}
-        for j, d in enumerate(dims):
-            sp = spread(block[:, j], d)
-            scale = 100 if d.relative else 1
-            spreads[f"{d.name}_spread{_suffix(d)}"] = sp * scale
-            spreads[f"{d.name}_margin{_suffix(d)}"] = (c.tolerance[d.name] - sp) * scale
+        spreads = spread_columns(c.raw[members], dims, c.tolerance)
         rows += [{"set": s, "device": c.devices[m], **spreads} for m in members]
-    return pd.DataFrame(rows, columns=["set", "device"] + _spread_columns(dims))
+    columns = [f"{d.name}_{w}{column_suffix(d)}" for d in dims for w in ("spread", "margin")]
+    return pd.DataFrame(rows, columns=["set", "device"] + columns)
 
 
 def no_set_reasons(c: Candidates, placed: set, k: int) -> None:
@@ -204,10 +195,6 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
     return MatchResult(profile, sets, unmatched, summary, values_table(c, profile, unmatched))
 
 
-def _suffix(dim) -> str:
-    return "_percent" if dim.relative else (f"_{dim.unit}" if dim.unit else "")
-
-
 def _fmt(value: float, dim) -> str:
     if dim.relative:
         return f"{100 * value:.3g} % of a typical value" if math.isfinite(value) else "n/a"
@@ -258,43 +245,3 @@ def run_match(results: str | Path, application: str, out: str | Path) -> MatchRe
         positions = dict(zip(d["device"].astype(str), d["position"]))
     write_match(result, out, positions)
     return result
-
-
-def partners(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
-             device: str, accuracy: dict | None = None, top: int = 10) -> pd.DataFrame:
-    """The parts closest to ``device`` under ``profile``: a replacement for a failed part.
-
-    Every other part that passes the profile's screens is ranked by the weighted
-    normalised difference; each criterion's difference and margin (tolerance after
-    the guard band minus the difference) is listed, and ``within`` says whether the
-    pair fits every tolerance.
-    """
-    accuracy = accuracy if accuracy is not None else _default_accuracy()
-    ev = evaluate(profile, tables, devices, accuracy)
-    if device not in ev.reasons:
-        raise InputError(f"device '{device}' is in no extraction table")
-    if ev.reasons[device]:
-        raise InputError(f"device '{device}' cannot be matched under {profile.name}: "
-                         + "; ".join(r.text for r in ev.reasons[device]))
-    dims = profile.dimensions
-    eff = {d.name: effective_tolerance(d, ev.guards[d.name], ev.typical[d.name]) for d in dims}
-    others = [d for d in ev.devices if not ev.reasons[d] and d != device]
-    cols = [d.name for d in dims]
-    raw = ev.values.loc[others, cols].to_numpy(float)
-    me = ev.values.loc[[device], cols].to_numpy(float)[0]
-    out = pd.DataFrame({"device": others})
-    score = np.zeros(len(others))
-    within = np.ones(len(others), dtype=bool)
-    for j, d in enumerate(dims):
-        if d.relative:
-            diff = np.maximum(raw[:, j], me[j]) / np.minimum(raw[:, j], me[j]) - 1.0
-        else:
-            diff = np.abs(raw[:, j] - me[j])
-        scale = 100 if d.relative else 1
-        out[f"{d.name}_difference{_suffix(d)}"] = diff * scale
-        out[f"{d.name}_margin{_suffix(d)}"] = (eff[d.name] - diff) * scale
-        within &= diff <= eff[d.name] * (1 + 1e-12)
-        score += d.weight * diff / eff[d.name]
-    out.insert(1, "within", within)
-    out.insert(2, "score", score)
-    return out.sort_values(["score", "device"], kind="stable").head(top).reset_index(drop=True)
