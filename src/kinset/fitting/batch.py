@@ -122,17 +122,18 @@ class Groups:
         self.n = n
         self.counts = np.bincount(self.codes, minlength=n)
         self.starts = np.concatenate([[0], np.cumsum(self.counts)[:-1]]).astype(np.int64)
-        self._empty = self.counts == 0
-        # reduceat reads one element of an empty block: clip the start into range.
-        self._at = np.minimum(self.starts, max(len(self.codes) - 1, 0))
+        self._filled = self.counts > 0
 
     def _reduce(self, ufunc, x, empty):
+        """``ufunc`` over each device's block; ``empty`` for a device without points.
+
+        ``reduceat`` runs over the non-empty blocks only: an empty block's start equals
+        the next block's, and at the end it would lie past the last point.
+        """
         x = np.asarray(x)
-        if not len(x):
-            return np.full(self.n, empty, dtype=np.result_type(x.dtype, type(empty)))
-        out = ufunc.reduceat(x, self._at)
-        if self._empty.any():
-            out = np.where(self._empty, empty, out)
+        out = np.full(self.n, empty, dtype=np.result_type(x.dtype, np.asarray(empty).dtype))
+        if len(x):
+            out[self._filled] = ufunc.reduceat(x, self.starts[self._filled])
         return out
 
     def max(self, x):
@@ -144,10 +145,12 @@ class Groups:
         return self._reduce(np.fmin, x, np.nan)
 
     def sum(self, x):
-        return self._reduce(np.add, np.asarray(x, dtype=float), 0.0)
+        """Sum per device, added in point order (0 where none)."""
+        return np.bincount(self.codes, np.asarray(x, dtype=float), minlength=self.n)
 
     def count(self, mask):
-        return self._reduce(np.add, np.asarray(mask).astype(np.int64), 0)
+        """Points per device where ``mask`` holds."""
+        return np.bincount(self.codes[np.asarray(mask, dtype=bool)], minlength=self.n)
 
     def spread(self, x, mask):
         """max − min of x over the masked points of each device (NaN where none)."""
