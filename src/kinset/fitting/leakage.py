@@ -34,6 +34,10 @@ VJ is held at 0.7 V and N_R at 2: a reverse sweep alone cannot separate VJ from 
 Parts whose leakage lies far above the reel's own distribution (median and median
 absolute deviation of log-current at a report voltage) get a warning; none is dropped.
 
+The fit runs in stages: prepare (readings by device and voltage), solve (the model),
+measure (the reported values), diagnose (each note as a code of :data:`NOTES`, where
+it applies) and table (status, note and ``reason_code`` from the codes, once).
+
 References
 ----------
 .. [1] C.-T. Sah, R. N. Noyce and W. Shockley, Proc. IRE 45(9), 1228-1243, 1957.
@@ -52,7 +56,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from kinset.fitting.batch import Groups
 from kinset.format import si
+from kinset.outcomes import Catalogue, Finding, Note, compose
 from kinset.physics.constants import ZERO_CELSIUS
 from kinset.physics.leakage import generation_shape, leakage_temperature_factor
 
@@ -76,6 +82,50 @@ MAD_TO_SIGMA = 1.4826       # Hampel [2]
 MAX_PLAUSIBLE_A = 1.0       # [A] a reverse "leakage" reading above this is not leakage
 FILES_DISAGREE = 3.0         # readings of one id in two files this far apart at one voltage
 PLATEAU_REL = 2e-3          # top readings this close to the largest current sat at a limit
+
+# One note per sentence a leakage row can carry, in the order a row gives them: the
+# reasons a part is rejected (each alone), then the warnings that matter most, then
+# what was done to the readings, what is missing, and the breakdown and temperature.
+NOTES = Catalogue("leakage", [
+    Note("implausible_current", "rejected",
+         "reverse currents up to {current}: not a leakage sweep (columns swapped or a "
+         "wrong unit?)"),
+    Note("no_usable_reading", "rejected",
+         "no usable reading: all {count} have zero or negative voltage or current"),
+    Note("files_disagree", "rejected",
+         "readings in {n_files} files ({files}) disagree: {ratio:.3g}\u00d7 apart at "
+         "{voltage:g} V; one id on two parts? Check the files"),
+    Note("possible_damage", "warning", "leakage {excess}: possible damage"),
+    Note("shorted", "warning",
+         "already {current} at the lowest reading ({voltage:g} V), above the breakdown "
+         "current: shorted or badly damaged"),
+    Note("too_few_voltages", "warning",
+         "{count} distinct voltage(s): too few for a leakage model; values only at and "
+         "between the readings"),
+    Note("signed_readings", "ok", "negative (signed) readings taken as reverse magnitudes"),
+    Note("unusable_readings", "ok",
+         "{count} reading(s) with zero or negative voltage or current not used"),
+    Note("current_limit", "ok",
+         "{count} reading(s) at the current limit {limit} above the first one left out "
+         "(set-points the source did not reach)"),
+    Note("poor_fit", "warning",
+         "poor fit of the leakage model: rms {percent:.2g} % (noisy readings or another "
+         "leakage mechanism)"),
+    Note("ir_below_sweep", "ok",
+         "ir at {voltage:g} V not measured: the lowest reading is {lowest:g} V"),
+    Note("ir_past_breakdown", "ok",
+         "ir at {voltage:g} V not measured: the sweep stopped at {highest:.4g} V in "
+         "breakdown ({current})"),
+    Note("ir_beyond_sweep", "ok",
+         "ir at {voltage:g} V not measured: the sweep ends at {highest:.4g} V"),
+    Note("breakdown_wide_step", "ok",
+         "breakdown between the readings at {low:.4g} V and {high:.4g} V (current "
+         "\u00d7{ratio:.2g}): bv_V interpolated across a wide step"),
+    Note("no_breakdown", "ok", "no breakdown up to {highest:.4g} V ({current} not reached)"),
+    Note("temperature_normalised", "ok",
+         "readings at {when} normalised to {reference:.3g} \u00b0C: {part} divided by "
+         "{factor} ({law})"),
+])
 
 
 @dataclass
@@ -109,27 +159,6 @@ def temperature_law(material: str, eg: float, xti: float) -> tuple[float, float,
 def report_column(voltage: float) -> str:
     """``ir_A_at_20V`` for 20 V, ``ir_A_at_2.5V`` for 2.5 V."""
     return f"ir_A_at_{voltage:g}V"
-
-
-def _first_index(groups: np.ndarray, mask: np.ndarray, n: int) -> np.ndarray:
-    """Per group, the flat index of its first masked element (-1 where none)."""
-    first = np.full(n, np.iinfo(np.int64).max)
-    sel = np.flatnonzero(mask)
-    np.minimum.at(first, groups[sel], sel)
-    return np.where(first == np.iinfo(np.int64).max, -1, first)
-
-
-def _group_max(groups, x, n, empty=np.nan):
-    """Per-group maximum of x; ``empty`` for groups without elements."""
-    out = np.full(n, -np.inf)
-    np.maximum.at(out, groups, x)
-    return np.where(np.bincount(groups, minlength=n) > 0, out, empty)
-
-
-def _group_min(groups, x, n, empty=np.nan):
-    out = np.full(n, np.inf)
-    np.minimum.at(out, groups, x)
-    return np.where(np.bincount(groups, minlength=n) > 0, out, empty)
 
 
 def _weighted_sums(idx, k, a, b, y):
@@ -219,6 +248,478 @@ def model_current(voltage, conductance, generation, m, factor, temperature):
         voltage, GEN_VJ, m, temperature, GEN_N)
 
 
+class _Groups(Groups):
+    """:class:`kinset.fitting.batch.Groups` with two adjustments, both for ``batch`` to take.
+
+    * devices without points after the last device with points do not shorten the
+      block before them (``Groups`` clips their ``reduceat`` start into range, so that
+      block loses its last point: wrong maxima and sums for the part before them);
+    * sums add in point order (``numpy.bincount``), as leakage always has, so the
+      tables stay the same to the last digit (``reduceat`` adds pairwise).
+    """
+
+    def _reduce(self, ufunc, x, empty):
+        x = np.asarray(x)
+        out = np.full(self.n, empty, dtype=np.result_type(x.dtype, type(empty)))
+        if len(x):
+            out[~self._empty] = ufunc.reduceat(x, self.starts[~self._empty])
+        return out
+
+    def sum(self, x):
+        return np.bincount(self.codes, np.asarray(x, dtype=float), minlength=self.n)
+
+
+# ----------------------------------------------------------------------------- prepare
+
+@dataclass
+class _Readings:
+    """Every device's usable readings, sorted by device then voltage (prepare's output)."""
+
+    names: np.ndarray            # (n,) device ids, sorted
+    groups: _Groups              # the readings' devices
+    v: np.ndarray                # (m,) reverse voltage [V]
+    cur: np.ndarray              # (m,) reverse current [A]
+    temp: np.ndarray             # (m,) temperature [K]
+    source: np.ndarray           # (m,) index into source_names
+    source_names: np.ndarray
+    factor: np.ndarray           # (m,) f(T) of the generation law
+    sigma: np.ndarray            # (m,) accuracy of the current [A]
+    new_v: np.ndarray            # (m,) first reading of its voltage on its device
+    dropped: dict                # per-device arrays about readings not used (for notes)
+
+    @property
+    def n(self) -> int:
+        return self.groups.n
+
+    @property
+    def dc(self) -> np.ndarray:
+        return self.groups.codes
+
+    @property
+    def lni(self) -> np.ndarray:
+        return np.log(self.cur)
+
+    @property
+    def pos(self) -> np.ndarray:
+        return np.arange(len(self.cur))
+
+
+def _usable_points(points: pd.DataFrame, s: LeakageSettings):
+    """All readings sorted by device, signs made positive, the unusable ones marked.
+
+    Returns the device codes and names, the sorted (v, i, T, source index) arrays, the
+    usable mask and per-device facts for the notes.
+    """
+    codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
+    src, src_names = pd.factorize(points["source"].astype(str).to_numpy())
+    by_device = np.argsort(codes, kind="stable")
+    every = _Groups(codes[by_device], len(names))
+    v = points["reverse_voltage"].to_numpy(dtype=float)[by_device]
+    i = points["reverse_current"].to_numpy(dtype=float)[by_device]
+    t = points["temperature"].to_numpy(dtype=float)[by_device]
+    t = np.where(np.isfinite(t), t, s.ambient_temperature)
+    # Sign convention: a device whose every non-zero voltage (or current) is negative
+    # was recorded as signed values; its magnitudes are the reverse sweep.
+    flip_v = (every.count(v > 0) == 0) & (every.count(v < 0) > 0)
+    flip_i = (every.count(i > 0) == 0) & (every.count(i < 0) > 0)
+    v = np.where(every.each(flip_v), -v, v)
+    i = np.where(every.each(flip_i), -i, i)
+    usable = (v > 0) & (i > 0)
+    implausible = every.count(usable & (i > MAX_PLAUSIBLE_A)) > 0
+    usable &= ~every.each(implausible)
+    dropped = dict(signed=flip_v | flip_i, implausible=implausible, peak=every.max(i),
+                   total=every.counts, bad=every.counts - every.count(usable))
+    return every.codes, names, (v, i, t, src[by_device], src_names), usable, dropped
+
+
+def _prepare(points: pd.DataFrame, s: LeakageSettings) -> _Readings:
+    """Usable readings by device and voltage, without set-points past the current limit."""
+    codes, names, (v, i, t, src, src_names), usable, dropped = _usable_points(points, s)
+    sel = np.flatnonzero(usable)
+    # by device and voltage; ties by temperature and current, so row order never matters
+    order = sel[np.lexsort((i[sel], t[sel], v[sel], codes[sel]))]
+    dc, v, cur, temp, src = codes[order], v[order], i[order], t[order], src[order]
+    # Readings at the current limit: the instrument reported the voltage it reached at
+    # its limit (valid, kept); further readings at the same current and higher
+    # voltages are set-points it never reached (left out).
+    g = _Groups(dc, len(names))
+    dropped["limit_current"] = g.max(cur)
+    near = cur >= g.each(dropped["limit_current"]) * (1 - PLATEAU_REL)
+    first_near = g.min(np.where(near, np.arange(len(dc)), np.nan))
+    at_limit = near & (g.each(g.count(near)) >= 2) & (np.arange(len(dc)) != g.each(first_near))
+    dropped["limit"] = g.count(at_limit)
+    keep = ~at_limit
+    dc, v, cur, temp, src = dc[keep], v[keep], cur[keep], temp[keep], src[keep]
+    factor = leakage_temperature_factor(temp, s.reference_temperature, s.activation_energy,
+                                        s.law_xti, s.law_n)
+    sigma = s.current_gain * cur + s.current_offset
+    new_v = np.ones(len(dc), dtype=bool)
+    new_v[1:] = (dc[1:] != dc[:-1]) | (v[1:] != v[:-1])
+    return _Readings(names, _Groups(dc, len(names)), v, cur, temp, src, src_names, factor,
+                     np.where(sigma > 0, sigma, cur), new_v, dropped)
+
+
+# ------------------------------------------------------------------------------- solve
+
+@dataclass
+class _Model:
+    """The leakage model per device (solve's output)."""
+
+    fitted: np.ndarray           # (n,) a model was fitted
+    g: np.ndarray                # (n,) 1/Rsh [S]
+    ig: np.ndarray               # (n,) Igen [A]
+    m: np.ndarray                # (n,) M [1]
+    rows: np.ndarray             # (m,) readings the model was fitted to
+    rms: np.ndarray              # (n,) rms of ln(I/model)
+
+
+def _below_breakdown(r: _Readings) -> np.ndarray:
+    """Readings below the first step to a higher voltage that rises faster than the model can.
+
+    Currents are provisionally scaled to the reference temperature, so that readings at
+    several temperatures can be compared.
+    """
+    d_lni, d_lnv = np.diff(r.lni - np.log(r.factor)), np.diff(np.log(r.v))
+    steep = np.zeros(len(r.v), dtype=bool)
+    steep[1:] = ((r.dc[1:] == r.dc[:-1]) & (d_lnv > 0)
+                 & (d_lni > BREAKDOWN_SLOPE * d_lnv + BREAKDOWN_MARGIN))
+    onset = r.groups.min(np.where(steep, r.pos, np.nan))
+    return r.pos < r.groups.each(np.where(np.isnan(onset), np.inf, onset))
+
+
+def _fit_rows(r: _Readings, mask: np.ndarray):
+    """(fitted, 1/Rsh, Igen, M) per device from the masked readings (NaN where unfitted)."""
+    fitted = r.groups.count(mask & r.new_v) >= MIN_MODEL_POINTS
+    rows = mask & r.groups.each(fitted)
+    g = np.full(r.n, np.nan)
+    ig, m = g.copy(), g.copy()
+    if rows.any():
+        local, k_ids = pd.factorize(r.dc[rows], sort=True)
+        g[k_ids], ig[k_ids], m[k_ids] = fit_shunt_generation(
+            local, len(k_ids), r.v[rows], r.cur[rows], r.factor[rows], r.temp[rows],
+            r.sigma[rows])
+    return fitted, g, ig, m
+
+
+def _log_residual(r: _Readings, rows, g, ig, m) -> np.ndarray:
+    """ln(I/model) at the given readings (NaN elsewhere)."""
+    res = np.full(len(r.v), np.nan)
+    dd = r.dc[rows]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        res[rows] = r.lni[rows] - np.log(model_current(r.v[rows], g[dd], ig[dd], m[dd],
+                                                       r.factor[rows], r.temp[rows]))
+    return res
+
+
+def _top_reading_above(r: _Readings, in_model: np.ndarray):
+    """Whether each device's top model reading lies well above what the others predict.
+
+    Returns the top readings (m,), the devices whose top reading breaks away (n,) and
+    the fit without them (as :func:`_fit_rows`), or None when no device has a fit left.
+    """
+    last = r.groups.max(np.where(in_model, r.pos, np.nan))
+    is_top = (r.pos == r.groups.each(last)) & in_model
+    trial = in_model & ~is_top
+    fitted_t, g_t, ig_t, m_t = _fit_rows(r, trial)
+    rows = trial & r.groups.each(fitted_t)
+    if not rows.any():
+        return None
+    res = _log_residual(r, rows | (is_top & r.groups.each(fitted_t)), g_t, ig_t, m_t)
+    dc = r.dc
+    scale = MAD_TO_SIGMA * pd.Series(np.abs(res[rows])).groupby(dc[rows]).median()
+    thr = np.full(r.n, np.inf)
+    thr[scale.index.to_numpy()] = np.maximum(TRAILING_SIGMAS * scale.to_numpy(), TRAILING_MIN)
+    top_res = np.full(r.n, -np.inf)
+    top_res[dc[is_top]] = res[is_top]
+    return is_top, fitted_t & (top_res > thr), (g_t, ig_t, m_t)
+
+
+def _solve(r: _Readings) -> _Model:
+    """The leakage model of every device below its breakdown, and how well it fits."""
+    in_model = _below_breakdown(r)
+    fitted, g, ig, m = _fit_rows(r, in_model)
+    # A soft breakdown starts gently: the top readings of the model range may already
+    # sit above the leakage law. Each round fits without each device's top reading and
+    # leaves that reading out when it lies well above what the others predict.
+    for _ in range(TRAILING_MAX_DROPPED):
+        trial = _top_reading_above(r, in_model)
+        if trial is None or not trial[1].any():
+            break
+        is_top, drop, (g_t, ig_t, m_t) = trial
+        in_model &= ~(is_top & r.groups.each(drop))
+        g, ig, m = np.where(drop, g_t, g), np.where(drop, ig_t, ig), np.where(drop, m_t, m)
+    rows = in_model & r.groups.each(fitted)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        model_pts = model_current(r.v, g[r.dc], ig[r.dc], m[r.dc], r.factor, r.temp)
+        res = np.where(rows, r.lni - np.log(model_pts), 0.0)
+        rms = np.sqrt(r.groups.sum(res * res) / r.groups.count(rows))
+    return _Model(fitted, g, ig, m, rows, np.where(fitted, rms, np.nan))
+
+
+# -------------------------------------------------------------------------- the values
+
+@dataclass
+class _Sweep:
+    """One reading per device and voltage, normalised to the reference temperature."""
+
+    groups: _Groups              # devices of the voltages
+    v: np.ndarray                # (k,) distinct voltages [V], ascending per device
+    lnn: np.ndarray              # (k,) ln of the normalised current there
+    moved_max: np.ndarray        # (n,) largest relative change by the normalisation
+    n_files: np.ndarray          # (n,) files the device's readings come from
+    worst: np.ndarray            # (n,) largest ln spread at one voltage
+    worst_v: np.ndarray          # (n,) where [V]
+
+    @property
+    def conflict(self) -> np.ndarray:
+        """Readings of one id from different files that disagree: two parts, one id."""
+        return (self.n_files > 1) & (self.worst > np.log(FILES_DISAGREE))
+
+
+def _normalised(r: _Readings, model: _Model) -> np.ndarray:
+    """Currents at the reference temperature: the generation part only (model), or
+    everything where there is no model."""
+    fit = r.groups.each(model.fitted)
+    dc = r.dc
+    with np.errstate(invalid="ignore"):
+        gen_part = np.where(fit, model.ig[dc] * generation_shape(r.v, GEN_VJ, model.m[dc],
+                                                                 r.temp, GEN_N), np.nan)
+        normal = np.where(fit, r.cur - (r.factor - 1.0) * gen_part, r.cur / r.factor)
+        return np.where(normal > 0.1 * r.cur / np.maximum(r.factor, 1.0), normal,
+                        r.cur / r.factor)
+
+
+def _sweep(r: _Readings, model: _Model) -> _Sweep:
+    """Repeated voltages (several sweeps, files or temperatures) as their geometric mean.
+
+    The spread of the repeats from different files is kept: readings of one id that
+    disagree (after the temperature normalisation) most likely come from two parts.
+    """
+    normal = _normalised(r, model)
+    moved = r.groups.max(np.abs(normal / r.cur - 1.0))
+    seg = np.cumsum(r.new_v) - 1
+    repeats = _Groups(seg, int(seg[-1]) + 1 if len(seg) else 0)
+    ln_norm = np.log(normal)
+    spread = repeats.each(repeats.max(ln_norm) - repeats.min(ln_norm))
+    worst = r.groups.max(spread)
+    worst_v = r.groups.min(np.where(spread == r.groups.each(worst), r.v, np.nan))
+    lnn = repeats.sum(ln_norm) / repeats.counts
+    first = np.flatnonzero(r.new_v)
+    return _Sweep(_Groups(r.dc[first], r.n), r.v[first], lnn,
+                  np.where(r.groups.counts > 0, moved, 0.0),
+                  r.groups.distinct(r.source, np.ones(len(r.v), dtype=bool)),
+                  np.where(r.groups.counts > 0, worst, 0.0), worst_v)
+
+
+def _at_voltage(sw: _Sweep, volt: float) -> np.ndarray:
+    """Log-interpolated normalised current at ``volt`` per device (NaN outside)."""
+    cm, vm, lnn = sw.groups.counts, sw.v, sw.lnn
+    below = sw.groups.count(vm < volt)
+    hi = sw.groups.starts + below
+    out = np.full(sw.groups.n, np.nan)
+    d = np.flatnonzero((cm > 0) & (below < cm))
+    j = hi[d]
+    exact = vm[j] == volt
+    interp = ~exact & (below[d] > 0)
+    out[d[exact]] = np.exp(lnn[j[exact]])
+    jj, dd = j[interp], d[interp]
+    w = (volt - vm[jj - 1]) / (vm[jj] - vm[jj - 1])
+    out[dd] = np.exp(lnn[jj - 1] + w * (lnn[jj] - lnn[jj - 1]))
+    return out
+
+
+def _breakdown(sw: _Sweep, breakdown_current: float) -> dict[str, np.ndarray]:
+    """Breakdown: the first crossing of the breakdown current, log-interpolated.
+
+    ``bv`` (NaN where none), ``shorted`` (already above it at the lowest reading) and the
+    readings bracketing the crossing (``low``, ``high``, ``ratio`` of their currents).
+    """
+    g, vm, lnn = sw.groups, sw.v, sw.lnn
+    ln_bd = np.log(breakdown_current)
+    first = g.min(np.where(lnn >= ln_bd, np.arange(len(vm)), np.nan))
+    crossed = first > g.starts
+    j = first[crossed].astype(np.int64)
+    out = {k: np.full(g.n, np.nan) for k in ("bv", "low", "high", "ratio")}
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = np.where(lnn[j] > lnn[j - 1], (ln_bd - lnn[j - 1]) / (lnn[j] - lnn[j - 1]), 1.0)
+    out["bv"][crossed] = vm[j - 1] + w * (vm[j] - vm[j - 1])
+    out["ratio"][crossed] = np.exp(lnn[j] - lnn[j - 1])
+    out["low"][crossed], out["high"][crossed] = vm[j - 1], vm[j]
+    out["shorted"] = (first == g.starts) & (g.counts > 0)
+    return out
+
+
+def _reel_outliers(report: dict[float, np.ndarray], n: int):
+    """Parts far above the reel's own distribution at each report voltage.
+
+    Median and MAD of ln I at each voltage with enough devices (Hampel [2]). Returns
+    the flags and the ratios to the median by voltage, and each part's largest ratio.
+    """
+    flags: dict[float, np.ndarray] = {}
+    ratios: dict[float, np.ndarray] = {}
+    ratio_max = np.full(n, np.nan)
+    for V, val in report.items():
+        x = np.log(val)
+        use = np.isfinite(x)
+        if use.sum() >= OUTLIER_MIN_DEVICES:
+            med = np.median(x[use])
+            mad = MAD_TO_SIGMA * np.median(np.abs(x[use] - med))
+            ratios[V] = np.exp(x - med)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                z = np.where(mad > 0, (x - med) / mad, np.inf)
+            flags[V] = use & (z > OUTLIER_SIGMAS) & (ratios[V] >= OUTLIER_RATIO)
+            ratio_max = np.fmax(ratio_max, ratios[V])
+    return flags, ratios, ratio_max
+
+
+def _measure(r: _Readings, model: _Model, s: LeakageSettings) -> tuple[_Sweep, dict]:
+    """The reported values: currents at the report voltages, breakdown, ranges, outliers."""
+    sw = _sweep(r, model)
+    report = {V: _at_voltage(sw, V) for V in s.report_voltages}
+    flags, ratios, ratio_max = _reel_outliers(report, r.n)
+    return sw, dict(
+        report=report, bd=_breakdown(sw, s.breakdown_current), flags=flags, ratios=ratios,
+        ratio_max=ratio_max, v_lo=sw.groups.min(sw.v), v_hi=sw.groups.max(sw.v),
+        i_top=sw.groups.max(np.exp(sw.lnn)), t_min=r.groups.min(r.temp),
+        t_max=r.groups.max(r.temp), f_min=r.groups.min(r.factor),
+        f_max=r.groups.max(r.factor))
+
+
+# ---------------------------------------------------------------------------- diagnose
+
+def _rejections(r: _Readings, sw: _Sweep) -> list[Finding]:
+    """Parts with nothing to report: each is rejected for one reason, alone in its note."""
+    d = r.dropped
+    implausible = d["implausible"]
+    empty = (sw.groups.counts == 0) & ~implausible
+    g = r.groups
+
+    def files(i):
+        mine = r.source[g.starts[i]:g.starts[i] + g.counts[i]]
+        return ", ".join(sorted({Path(r.source_names[k]).name for k in mine}))
+
+    return [
+        Finding("implausible_current", implausible, {"current": lambda i: si(d["peak"][i], "A")}),
+        Finding("no_usable_reading", empty, {"count": d["total"]}),
+        Finding("files_disagree", sw.conflict & ~implausible & ~empty,
+                {"n_files": sw.n_files, "files": files, "voltage": sw.worst_v,
+                 "ratio": lambda i: np.exp(sw.worst[i])}),
+    ]
+
+
+def _excess(flags, ratios, bv):
+    """The words of the possible-damage note of part i: each voltage it leaks too much at."""
+    def words(i):
+        parts = []
+        for V in flags:
+            if flags[V][i]:
+                r = ratios[V][i]
+                times = f"{r:.0f}" if r >= 10 else f"{r:.1f}"
+                where = " (in breakdown)" if np.isfinite(bv[i]) and V >= bv[i] else ""
+                parts.append(f"{times}\u00d7 the reel median at {V:g} V{where}")
+        return ", ".join(parts)
+    return words
+
+
+def _missing_values(live, vals) -> list[Finding]:
+    """Why a report voltage has no value: below the sweep, past breakdown, beyond the end."""
+    bd, v_lo, v_hi = vals["bd"], vals["v_lo"], vals["v_hi"]
+    out = []
+    for V, val in vals["report"].items():
+        missing = live & ~np.isfinite(val)
+        below = missing & (V < v_lo)
+        past = missing & ~below & (np.isfinite(bd["bv"]) | bd["shorted"])
+        out += [Finding("ir_below_sweep", below, {"voltage": V, "lowest": v_lo}),
+                Finding("ir_past_breakdown", past,
+                        {"voltage": V, "highest": v_hi,
+                         "current": lambda i: si(vals["i_top"][i], "A")}),
+                Finding("ir_beyond_sweep", missing & ~below & ~past,
+                        {"voltage": V, "highest": v_hi})]
+    return out
+
+
+def _temperature_words(vals):
+    """The temperatures and factors of the normalisation note, as words, for part i."""
+    def when(i):
+        lo_c, hi_c = vals["t_min"][i] - ZERO_CELSIUS, vals["t_max"][i] - ZERO_CELSIUS
+        return f"{lo_c:.3g} °C" if abs(hi_c - lo_c) < 0.05 else f"{lo_c:.3g}–{hi_c:.3g} °C"
+
+    def factor(i):
+        lo, hi = vals["f_min"][i], vals["f_max"][i]
+        return f"{lo:.3g}" if abs(hi - lo) < 1e-3 else f"{lo:.3g}–{hi:.3g}"
+    return when, factor
+
+
+def _diagnose(r: _Readings, model: _Model, sw: _Sweep, vals: dict,
+              s: LeakageSettings) -> list[Finding]:
+    """Every note of every part as findings, in the order a row gives its notes."""
+    rejections = _rejections(r, sw)
+    live = ~np.logical_or.reduce([f.where for f in rejections])
+    d, bd = r.dropped, vals["bd"]
+    flagged = np.logical_or.reduce([np.zeros(r.n, dtype=bool), *vals["flags"].values()])
+    bv = bd["bv"]
+    when, factor = _temperature_words(vals)
+    return rejections + [
+        Finding("possible_damage", live & flagged,
+                {"excess": _excess(vals["flags"], vals["ratios"], bv)}),
+        Finding("shorted", live & bd["shorted"],
+                {"current": lambda i: si(np.exp(sw.lnn[sw.groups.starts[i]]), "A"),
+                 "voltage": vals["v_lo"]}),
+        Finding("too_few_voltages", live & ~model.fitted, {"count": sw.groups.counts}),
+        Finding("signed_readings", live & d["signed"]),
+        Finding("unusable_readings", live & (d["bad"] > 0), {"count": d["bad"]}),
+        Finding("current_limit", live & (d["limit"] > 0),
+                {"count": d["limit"], "limit": lambda i: si(d["limit_current"][i], "A")}),
+        Finding("poor_fit", live & model.fitted & (model.rms > POOR_FIT_RMS),
+                {"percent": 100 * model.rms}),
+        *_missing_values(live, vals),
+        Finding("breakdown_wide_step", live & np.isfinite(bv) & (bd["ratio"] > 100.0),
+                {"low": bd["low"], "high": bd["high"], "ratio": bd["ratio"]}),
+        Finding("no_breakdown", live & ~np.isfinite(bv) & ~bd["shorted"],
+                {"highest": vals["v_hi"], "current": si(s.breakdown_current, "A")}),
+        Finding("temperature_normalised", live & (sw.moved_max > NOTE_NORMALISED),
+                {"when": when, "factor": factor, "law": s.law,
+                 "reference": s.reference_temperature - ZERO_CELSIUS,
+                 "part": np.where(model.fitted, "generation part", "whole current (no model)")}),
+    ]
+
+
+# ------------------------------------------------------------------------------- table
+
+def _table(r: _Readings, model: _Model, vals: dict, findings: list[Finding],
+           s: LeakageSettings) -> pd.DataFrame:
+    """One row per device: status, note and reason_code from the findings, then the values."""
+    status, note, code = compose(r.n, findings, NOTES)
+    out = pd.DataFrame({"device": r.names.astype(str), "status": status, "note": note,
+                        "reason_code": code})
+    for V, val in vals["report"].items():
+        out[report_column(V)] = val
+    fitted, g = model.fitted, model.g
+    with np.errstate(divide="ignore"):
+        rsh = np.where(fitted, np.where(g > 0, 1.0 / g, np.inf), np.nan)
+    out["bv_V"] = vals["bd"]["bv"]
+    out["rsh_ohm"] = rsh
+    out["igen_A"] = np.where(fitted, model.ig, np.nan)
+    out["gen_m"] = np.where(fitted & (model.ig > 0), model.m, np.nan)
+    out["gen_vj_V"] = np.where(fitted, GEN_VJ, np.nan)
+    out["gen_n"] = np.where(fitted, GEN_N, np.nan)
+    out["fit_rms_log"] = model.rms
+    out["points"] = r.groups.count(model.rows)
+    out["sweep_min_V"] = vals["v_lo"]
+    out["sweep_max_V"] = vals["v_hi"]
+    out["model_max_V"] = np.where(fitted, r.groups.max(np.where(model.rows, r.v, np.nan)),
+                                  np.nan)
+    out["current_max_A"] = vals["i_top"]
+    out["ir_ratio_to_median"] = vals["ratio_max"]
+    out["sweep_t_min_C"] = vals["t_min"] - ZERO_CELSIUS
+    out["sweep_t_max_C"] = vals["t_max"] - ZERO_CELSIUS
+    out["reference_temperature_C"] = s.reference_temperature - ZERO_CELSIUS
+    out["law_eg_eV"] = s.activation_energy
+    out["law_xti"] = s.law_xti
+    out["law_n"] = s.law_n
+    return out
+
+
 def fit_leakage(points: pd.DataFrame, settings: LeakageSettings) -> pd.DataFrame:
     """Leakage values, breakdown voltage and model of every device in a table of readings.
 
@@ -232,320 +733,16 @@ def fit_leakage(points: pd.DataFrame, settings: LeakageSettings) -> pd.DataFrame
     Returns
     -------
     DataFrame
-        One row per device, sorted by id: ``device, status, note``, ``ir_A_at_<V>V``
-        for each report voltage, ``bv_V``, the model (``rsh_ohm, igen_A, gen_m,
-        gen_vj_V, gen_n``), its fit (``fit_rms_log``, ``points``), the measured and
-        modelled ranges (``sweep_min_V, sweep_max_V, model_max_V, current_max_A,
-        sweep_t_min_C, sweep_t_max_C``), ``ir_ratio_to_median`` and the temperature
-        law the values hold with (``law_eg_eV, law_xti, law_n``,
-        ``reference_temperature_C``).
+        One row per device, sorted by id: ``device, status, note, reason_code`` (the
+        codes of :data:`NOTES`), ``ir_A_at_<V>V`` for each report voltage, ``bv_V``,
+        the model (``rsh_ohm, igen_A, gen_m, gen_vj_V, gen_n``), its fit
+        (``fit_rms_log``, ``points``), the measured and modelled ranges (``sweep_min_V,
+        sweep_max_V, model_max_V, current_max_A, sweep_t_min_C, sweep_t_max_C``),
+        ``ir_ratio_to_median`` and the temperature law the values hold with
+        (``law_eg_eV, law_xti, law_n``, ``reference_temperature_C``).
     """
-    s = settings
-    t_ref = s.reference_temperature
-    codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
-    n_dev = len(names)
-    v_all = points["reverse_voltage"].to_numpy(dtype=float)
-    i_all = points["reverse_current"].to_numpy(dtype=float)
-    t_all = points["temperature"].to_numpy(dtype=float)
-    t_all = np.where(np.isfinite(t_all), t_all, s.ambient_temperature)
-    total = np.bincount(codes, minlength=n_dev)
-
-    # Sign convention: a device whose every non-zero voltage (or current) is negative
-    # was recorded as signed values; its magnitudes are the reverse sweep.
-    flip_v = (np.bincount(codes, v_all > 0, n_dev) == 0) & (np.bincount(codes, v_all < 0, n_dev) > 0)
-    flip_i = (np.bincount(codes, i_all > 0, n_dev) == 0) & (np.bincount(codes, i_all < 0, n_dev) > 0)
-    v_all = np.where(flip_v[codes], -v_all, v_all)
-    i_all = np.where(flip_i[codes], -i_all, i_all)
-    usable = (v_all > 0) & (i_all > 0)
-    implausible = np.bincount(codes, usable & (i_all > MAX_PLAUSIBLE_A), n_dev) > 0
-    usable &= ~implausible[codes]
-
-    sel = np.flatnonzero(usable)
-    # by device and voltage; ties by temperature and current, so row order never matters
-    order = sel[np.lexsort((i_all[sel], t_all[sel], v_all[sel], codes[sel]))]
-    dc, v, cur, temp = codes[order], v_all[order], i_all[order], t_all[order]
-
-    # Readings at the current limit: the instrument reported the voltage it reached at
-    # its limit (valid, kept); further readings at the same current and higher
-    # voltages are set-points it never reached (left out).
-    imax = _group_max(dc, cur, n_dev)
-    near = cur >= imax[dc] * (1 - PLATEAU_REL)
-    n_near = np.bincount(dc, near, n_dev).astype(np.int64)
-    first_near = _first_index(dc, near, n_dev)
-    at_limit = near & (n_near[dc] >= 2) & (np.arange(len(dc)) != first_near[dc])
-    n_limit = np.bincount(dc, at_limit, n_dev).astype(np.int64)
-    keep = ~at_limit
-    dc, v, cur, temp = dc[keep], v[keep], cur[keep], temp[keep]
-    m_pts = len(dc)
-    pos = np.arange(m_pts)
-    factor = leakage_temperature_factor(temp, t_ref, s.activation_energy, s.law_xti, s.law_n)
-    sigma = s.current_gain * cur + s.current_offset
-    sigma = np.where(sigma > 0, sigma, cur)
-    lni = np.log(cur)
-
-    # Breakdown onset: the first step to a higher voltage that rises faster than the
-    # model can (currents provisionally scaled to the reference temperature, so that
-    # readings at several temperatures can be compared).
-    same = dc[1:] == dc[:-1]
-    d_lni, d_lnv = np.diff(lni - np.log(factor)), np.diff(np.log(v))
-    steep = same & (d_lnv > 0) & (d_lni > BREAKDOWN_SLOPE * d_lnv + BREAKDOWN_MARGIN)
-    onset = _first_index(dc[1:], steep, n_dev)
-    onset = np.where(onset >= 0, onset + 1, np.iinfo(np.int64).max)
-    in_model = pos < onset[dc]
-    new_v = np.ones(m_pts, dtype=bool)
-    new_v[1:] = ~same | (v[1:] != v[:-1])
-
-    def fit(mask):
-        distinct = np.bincount(dc, mask & new_v, n_dev)
-        fitted = distinct >= MIN_MODEL_POINTS
-        rows = mask & fitted[dc]
-        g = np.full(n_dev, np.nan)
-        ig, m = g.copy(), g.copy()
-        if rows.any():
-            local, k_ids = pd.factorize(dc[rows], sort=True)
-            gg, ii, mm = fit_shunt_generation(local, len(k_ids), v[rows], cur[rows],
-                                              factor[rows], temp[rows], sigma[rows])
-            g[k_ids], ig[k_ids], m[k_ids] = gg, ii, mm
-        return fitted, g, ig, m
-
-    def log_residual(rows, g_, ig_, m_):
-        r = np.full(m_pts, np.nan)
-        dd = dc[rows]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            r[rows] = lni[rows] - np.log(model_current(v[rows], g_[dd], ig_[dd], m_[dd],
-                                                       factor[rows], temp[rows]))
-        return r
-
-    fitted, g, ig, m = fit(in_model)
-    # A soft breakdown starts gently: the top readings of the model range may already
-    # sit above the leakage law. Each round fits without each device's top reading and
-    # leaves that reading out when it lies well above what the others predict.
-    for _ in range(TRAILING_MAX_DROPPED):
-        last = _group_max(dc[in_model], pos[in_model], n_dev, empty=-1).astype(np.int64)
-        is_top = (pos == last[dc]) & in_model
-        trial = in_model & ~is_top
-        fitted_t, g_t, ig_t, m_t = fit(trial)
-        rows = trial & fitted_t[dc]
-        if not rows.any():
-            break
-        res = log_residual(rows | (is_top & fitted_t[dc]), g_t, ig_t, m_t)
-        scale = MAD_TO_SIGMA * pd.Series(np.abs(res[rows])).groupby(dc[rows]).median()
-        thr = np.full(n_dev, np.inf)
-        thr[scale.index.to_numpy()] = np.maximum(TRAILING_SIGMAS * scale.to_numpy(), TRAILING_MIN)
-        top_res = np.full(n_dev, -np.inf)
-        top_res[dc[is_top]] = res[is_top]
-        drop = fitted_t & (top_res > thr)
-        if not drop.any():
-            break
-        in_model &= ~(is_top & drop[dc])
-        g, ig, m = np.where(drop, g_t, g), np.where(drop, ig_t, ig), np.where(drop, m_t, m)
-    model_rows = in_model & fitted[dc]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        model_pts = model_current(v, g[dc], ig[dc], m[dc], factor, temp)
-        res = np.where(model_rows, lni - np.log(model_pts), 0.0)
-    n_model = np.bincount(dc, model_rows, n_dev).astype(np.int64)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rms = np.sqrt(np.bincount(dc, res * res, n_dev) / n_model)
-    rms = np.where(fitted, rms, np.nan)
-
-    # Normalise to the reference temperature: the generation part only (model), or
-    # everything where there is no model.
-    with np.errstate(invalid="ignore"):
-        gen_part = np.where(fitted[dc], ig[dc] * generation_shape(v, GEN_VJ, m[dc], temp, GEN_N), np.nan)
-        normal = np.where(fitted[dc], cur - (factor - 1.0) * gen_part, cur / factor)
-        normal = np.where(normal > 0.1 * cur / np.maximum(factor, 1.0), normal, cur / factor)
-    moved = np.abs(normal / cur - 1.0)
-    moved_max = _group_max(dc, moved, n_dev, empty=0.0)
-
-    # Repeated voltages (several sweeps, files or temperatures): geometric mean.
-    seg = np.cumsum(new_v) - 1
-    n_seg = int(seg[-1]) + 1 if m_pts else 0
-    # ... unless readings of one id from different files disagree at the same voltage
-    # (after the temperature normalisation): then the id most likely names two parts.
-    src_codes, src_names = pd.factorize(points["source"].astype(str).to_numpy())
-    src = src_codes[order][keep]
-    ln_norm = np.log(normal)
-    seg_hi = np.full(n_seg, -np.inf)
-    seg_lo = np.full(n_seg, np.inf)
-    np.maximum.at(seg_hi, seg, ln_norm)
-    np.minimum.at(seg_lo, seg, ln_norm)
-    pairs = np.unique(np.stack([dc, src]), axis=1) if m_pts else np.zeros((2, 0), dtype=int)
-    n_files = np.bincount(pairs[0], minlength=n_dev)
-    spread = (seg_hi - seg_lo)[seg] if m_pts else np.zeros(0)
-    worst = _group_max(dc, spread, n_dev, empty=0.0)
-    worst_v = np.full(n_dev, np.nan)
-    top = np.flatnonzero(spread == worst[dc])
-    worst_v[dc[top[::-1]]] = v[top[::-1]]
-    conflict = (n_files > 1) & (worst > np.log(FILES_DISAGREE))
-    lnn = np.bincount(seg, np.log(normal), n_seg) / np.bincount(seg, minlength=n_seg)
-    first_of = np.flatnonzero(new_v)
-    dm, vm = dc[first_of], v[first_of]
-    cm = np.bincount(dm, minlength=n_dev)
-    sm = np.concatenate([[0], np.cumsum(cm)[:-1]])
-    v_lo = _group_min(dm, vm, n_dev)
-    v_hi = _group_max(dm, vm, n_dev)
-
-    def at_voltage(volt):
-        """log-interpolated normalised current at ``volt`` per device (NaN outside)."""
-        below = np.bincount(dm, vm < volt, n_dev).astype(np.int64)
-        hi = sm + below
-        inside = (cm > 0) & (below < cm)
-        out = np.full(n_dev, np.nan)
-        d = np.flatnonzero(inside)
-        j = hi[d]
-        exact = vm[j] == volt
-        interp = ~exact & (below[d] > 0)
-        out[d[exact]] = np.exp(lnn[j[exact]])
-        jj, dd = j[interp], d[interp]
-        w = (volt - vm[jj - 1]) / (vm[jj] - vm[jj - 1])
-        out[dd] = np.exp(lnn[jj - 1] + w * (lnn[jj] - lnn[jj - 1]))
-        return out
-
-    report = {V: at_voltage(V) for V in s.report_voltages}
-
-    # Breakdown: the first crossing of the breakdown current, log-interpolated.
-    ln_bd = np.log(s.breakdown_current)
-    first_bd = _first_index(dm, lnn >= ln_bd, n_dev) if len(dm) else np.full(n_dev, -1)
-    bv = np.full(n_dev, np.nan)
-    crossed = first_bd > sm
-    j = first_bd[crossed]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        w = np.where(lnn[j] > lnn[j - 1], (ln_bd - lnn[j - 1]) / (lnn[j] - lnn[j - 1]), 1.0)
-    bv[crossed] = vm[j - 1] + w * (vm[j] - vm[j - 1])
-    shorted = (first_bd == sm) & (cm > 0)
-    bracket_ratio = np.full(n_dev, np.nan)
-    bracket_ratio[crossed] = np.exp(lnn[j] - lnn[j - 1])
-    bracket_lo = np.full(n_dev, np.nan)
-    bracket_hi = np.full(n_dev, np.nan)
-    bracket_lo[crossed], bracket_hi[crossed] = vm[j - 1], vm[j]
-
-    # The reel's own distribution at each report voltage (median and MAD of ln I).
-    flags: dict[float, np.ndarray] = {}
-    ratios: dict[float, np.ndarray] = {}
-    ratio_max = np.full(n_dev, np.nan)
-    for V, val in report.items():
-        x = np.log(val)
-        use = np.isfinite(x)
-        if use.sum() >= OUTLIER_MIN_DEVICES:
-            med = np.median(x[use])
-            mad = MAD_TO_SIGMA * np.median(np.abs(x[use] - med))
-            ratios[V] = np.exp(x - med)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                z = np.where(mad > 0, (x - med) / mad, np.inf)
-            flags[V] = use & (z > OUTLIER_SIGMAS) & (ratios[V] >= OUTLIER_RATIO)
-            ratio_max = np.fmax(ratio_max, ratios[V])
-
-    model_max = _group_max(dc[model_rows], v[model_rows], n_dev)
-    t_min = _group_min(dc, temp, n_dev)
-    t_max = _group_max(dc, temp, n_dev)
-    i_top = _group_max(dm, np.exp(lnn), n_dev)
-    n_bad = total - np.bincount(codes, usable, n_dev).astype(np.int64)
-    factor_min = _group_min(dc, factor, n_dev)
-    factor_max = _group_max(dc, factor, n_dev)
-
-    status, notes = [], []
-    for d in range(n_dev):
-        note: list[str] = []
-        st = "ok"
-        if implausible[d]:
-            status.append("rejected")
-            notes.append(f"reverse currents up to {si(np.nanmax(i_all[codes == d]), 'A')}: "
-                         f"not a leakage sweep (columns swapped or a wrong unit?)")
-            continue
-        if cm[d] == 0:
-            status.append("rejected")
-            notes.append(f"no usable reading: all {total[d]} have zero or negative voltage "
-                         f"or current")
-            continue
-        if conflict[d]:
-            files = ", ".join(sorted({Path(src_names[k]).name for k in pairs[1][pairs[0] == d]}))
-            status.append("rejected")
-            notes.append(f"readings in {n_files[d]} files ({files}) disagree: "
-                         f"{np.exp(worst[d]):.3g}× apart at {worst_v[d]:g} V; one id on two "
-                         f"parts? Check the files")
-            continue
-        if flip_v[d] or flip_i[d]:
-            note.append("negative (signed) readings taken as reverse magnitudes")
-        if n_bad[d]:
-            note.append(f"{n_bad[d]} reading(s) with zero or negative voltage or current "
-                        f"not used")
-        if n_limit[d]:
-            note.append(f"{n_limit[d]} reading(s) at the current limit "
-                        f"{si(imax[d], 'A')} above the first one left out (set-points the "
-                        f"source did not reach)")
-        if not fitted[d]:
-            st = "warning"
-            note.insert(0, f"{cm[d]} distinct voltage(s): too few for a leakage model; values "
-                        f"only at and between the readings")
-        elif rms[d] > POOR_FIT_RMS:
-            st = "warning"
-            note.append(f"poor fit of the leakage model: rms {100 * rms[d]:.2g} % (noisy "
-                        f"readings or another leakage mechanism)")
-        if shorted[d]:
-            st = "warning"
-            note.insert(0, f"already {si(np.exp(lnn[sm[d]]), 'A')} at the lowest reading "
-                        f"({v_lo[d]:g} V), above the breakdown current: shorted or "
-                        f"badly damaged")
-        for V, val in report.items():
-            if np.isfinite(val[d]):
-                continue
-            if V < v_lo[d]:
-                note.append(f"ir at {V:g} V not measured: the lowest reading is {v_lo[d]:g} V")
-            elif np.isfinite(bv[d]) or shorted[d]:
-                note.append(f"ir at {V:g} V not measured: the sweep stopped at "
-                            f"{v_hi[d]:.4g} V in breakdown ({si(i_top[d], 'A')})")
-            else:
-                note.append(f"ir at {V:g} V not measured: the sweep ends at {v_hi[d]:.4g} V")
-        if np.isfinite(bv[d]) and bracket_ratio[d] > 100.0:
-            note.append(f"breakdown between the readings at {bracket_lo[d]:.4g} V and "
-                        f"{bracket_hi[d]:.4g} V (current ×{bracket_ratio[d]:.2g}): bv_V "
-                        f"interpolated across a wide step")
-        elif not np.isfinite(bv[d]) and not shorted[d]:
-            note.append(f"no breakdown up to {v_hi[d]:.4g} V "
-                        f"({si(s.breakdown_current, 'A')} not reached)")
-        flagged = [(V, ratios[V][d]) for V in flags if flags[V][d]]
-        if flagged:
-            st = "warning"
-            parts = []
-            for V, r in flagged:
-                times = f"{r:.0f}" if r >= 10 else f"{r:.1f}"
-                where = " (in breakdown)" if np.isfinite(bv[d]) and V >= bv[d] else ""
-                parts.append(f"{times}\u00d7 the reel median at {V:g} V{where}")
-            note.insert(0, "leakage " + ", ".join(parts) + ": possible damage")
-        if moved_max[d] > NOTE_NORMALISED:
-            lo_c, hi_c = t_min[d] - ZERO_CELSIUS, t_max[d] - ZERO_CELSIUS
-            when = f"{lo_c:.3g} °C" if abs(hi_c - lo_c) < 0.05 else f"{lo_c:.3g}–{hi_c:.3g} °C"
-            f_txt = (f"{factor_min[d]:.3g}" if abs(factor_max[d] - factor_min[d]) < 1e-3
-                     else f"{factor_min[d]:.3g}–{factor_max[d]:.3g}")
-            what = "generation part" if fitted[d] else "whole current (no model)"
-            note.append(f"readings at {when} normalised to {t_ref - ZERO_CELSIUS:.3g} °C: "
-                        f"{what} divided by {f_txt} ({s.law})")
-        status.append(st)
-        notes.append("; ".join(note))
-
-    out = pd.DataFrame({"device": names.astype(str), "status": status, "note": notes})
-    for V, val in report.items():
-        out[report_column(V)] = val
-    with np.errstate(divide="ignore"):
-        rsh = np.where(fitted, np.where(g > 0, 1.0 / g, np.inf), np.nan)
-    has_gen = fitted & (ig > 0)
-    out["bv_V"] = bv
-    out["rsh_ohm"] = rsh
-    out["igen_A"] = np.where(fitted, ig, np.nan)
-    out["gen_m"] = np.where(has_gen, m, np.nan)
-    out["gen_vj_V"] = np.where(fitted, GEN_VJ, np.nan)
-    out["gen_n"] = np.where(fitted, GEN_N, np.nan)
-    out["fit_rms_log"] = rms
-    out["points"] = n_model
-    out["sweep_min_V"] = v_lo
-    out["sweep_max_V"] = v_hi
-    out["model_max_V"] = np.where(fitted, model_max, np.nan)
-    out["current_max_A"] = i_top
-    out["ir_ratio_to_median"] = ratio_max
-    out["sweep_t_min_C"] = t_min - ZERO_CELSIUS
-    out["sweep_t_max_C"] = t_max - ZERO_CELSIUS
-    out["reference_temperature_C"] = t_ref - ZERO_CELSIUS
-    out["law_eg_eV"] = s.activation_energy
-    out["law_xti"] = s.law_xti
-    out["law_n"] = s.law_n
-    return out
+    readings = _prepare(points, settings)
+    model = _solve(readings)
+    sweep, values = _measure(readings, model, settings)
+    findings = _diagnose(readings, model, sweep, values, settings)
+    return _table(readings, model, values, findings, settings)
