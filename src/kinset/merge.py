@@ -8,7 +8,7 @@ from kinset.registry import NAMES
 
 # Columns every dataset table has; in devices.csv they are always prefixed by
 # the dataset so the names do not depend on which datasets a reel carries.
-SHARED = {"status", "note", "points", "position", "reference_temperature_C"}
+SHARED = {"status", "note", "reason_code", "points", "position", "reference_temperature_C"}
 ORDER = NAMES    # devices.csv: the datasets' columns in the registry's order
 
 

@@ -248,27 +248,6 @@ def model_current(voltage, conductance, generation, m, factor, temperature):
         voltage, GEN_VJ, m, temperature, GEN_N)
 
 
-class _Groups(Groups):
-    """:class:`kinset.fitting.batch.Groups` with two adjustments, both for ``batch`` to take.
-
-    * devices without points after the last device with points do not shorten the
-      block before them (``Groups`` clips their ``reduceat`` start into range, so that
-      block loses its last point: wrong maxima and sums for the part before them);
-    * sums add in point order (``numpy.bincount``), as leakage always has, so the
-      tables stay the same to the last digit (``reduceat`` adds pairwise).
-    """
-
-    def _reduce(self, ufunc, x, empty):
-        x = np.asarray(x)
-        out = np.full(self.n, empty, dtype=np.result_type(x.dtype, type(empty)))
-        if len(x):
-            out[~self._empty] = ufunc.reduceat(x, self.starts[~self._empty])
-        return out
-
-    def sum(self, x):
-        return np.bincount(self.codes, np.asarray(x, dtype=float), minlength=self.n)
-
-
 # ----------------------------------------------------------------------------- prepare
 
 @dataclass
@@ -276,7 +255,7 @@ class _Readings:
     """Every device's usable readings, sorted by device then voltage (prepare's output)."""
 
     names: np.ndarray            # (n,) device ids, sorted
-    groups: _Groups              # the readings' devices
+    groups: Groups              # the readings' devices
     v: np.ndarray                # (m,) reverse voltage [V]
     cur: np.ndarray              # (m,) reverse current [A]
     temp: np.ndarray             # (m,) temperature [K]
@@ -313,7 +292,7 @@ def _usable_points(points: pd.DataFrame, s: LeakageSettings):
     codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
     src, src_names = pd.factorize(points["source"].astype(str).to_numpy())
     by_device = np.argsort(codes, kind="stable")
-    every = _Groups(codes[by_device], len(names))
+    every = Groups(codes[by_device], len(names))
     v = points["reverse_voltage"].to_numpy(dtype=float)[by_device]
     i = points["reverse_current"].to_numpy(dtype=float)[by_device]
     t = points["temperature"].to_numpy(dtype=float)[by_device]
@@ -342,7 +321,7 @@ def _prepare(points: pd.DataFrame, s: LeakageSettings) -> _Readings:
     # Readings at the current limit: the instrument reported the voltage it reached at
     # its limit (valid, kept); further readings at the same current and higher
     # voltages are set-points it never reached (left out).
-    g = _Groups(dc, len(names))
+    g = Groups(dc, len(names))
     dropped["limit_current"] = g.max(cur)
     near = cur >= g.each(dropped["limit_current"]) * (1 - PLATEAU_REL)
     first_near = g.min(np.where(near, np.arange(len(dc)), np.nan))
@@ -355,7 +334,7 @@ def _prepare(points: pd.DataFrame, s: LeakageSettings) -> _Readings:
     sigma = s.current_gain * cur + s.current_offset
     new_v = np.ones(len(dc), dtype=bool)
     new_v[1:] = (dc[1:] != dc[:-1]) | (v[1:] != v[:-1])
-    return _Readings(names, _Groups(dc, len(names)), v, cur, temp, src, src_names, factor,
+    return _Readings(names, Groups(dc, len(names)), v, cur, temp, src, src_names, factor,
                      np.where(sigma > 0, sigma, cur), new_v, dropped)
 
 
@@ -462,7 +441,7 @@ def _solve(r: _Readings) -> _Model:
 class _Sweep:
     """One reading per device and voltage, normalised to the reference temperature."""
 
-    groups: _Groups              # devices of the voltages
+    groups: Groups              # devices of the voltages
     v: np.ndarray                # (k,) distinct voltages [V], ascending per device
     lnn: np.ndarray              # (k,) ln of the normalised current there
     moved_max: np.ndarray        # (n,) largest relative change by the normalisation
@@ -498,14 +477,14 @@ def _sweep(r: _Readings, model: _Model) -> _Sweep:
     normal = _normalised(r, model)
     moved = r.groups.max(np.abs(normal / r.cur - 1.0))
     seg = np.cumsum(r.new_v) - 1
-    repeats = _Groups(seg, int(seg[-1]) + 1 if len(seg) else 0)
+    repeats = Groups(seg, int(seg[-1]) + 1 if len(seg) else 0)
     ln_norm = np.log(normal)
     spread = repeats.each(repeats.max(ln_norm) - repeats.min(ln_norm))
     worst = r.groups.max(spread)
     worst_v = r.groups.min(np.where(spread == r.groups.each(worst), r.v, np.nan))
     lnn = repeats.sum(ln_norm) / repeats.counts
     first = np.flatnonzero(r.new_v)
-    return _Sweep(_Groups(r.dc[first], r.n), r.v[first], lnn,
+    return _Sweep(Groups(r.dc[first], r.n), r.v[first], lnn,
                   np.where(r.groups.counts > 0, moved, 0.0),
                   r.groups.distinct(r.source, np.ones(len(r.v), dtype=bool)),
                   np.where(r.groups.counts > 0, worst, 0.0), worst_v)
