@@ -6,7 +6,7 @@ import pandas as pd
 
 # Columns every dataset table has; in devices.csv they are always prefixed by
 # the dataset so the names do not depend on which datasets a reel carries.
-SHARED = {"status", "note", "points", "position", "reference_temperature_C"}
+SHARED = {"status", "note", "reason_code", "points", "position", "reference_temperature_C"}
 ORDER = ("forward", "leakage", "capacitance", "recovery")
 
 
