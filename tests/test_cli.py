@@ -11,8 +11,8 @@ from kinset.io.output import read_result
 from kinset.quantities import forward_voltage_tempco
 
 ROOT = Path(__file__).resolve().parents[1]
-CONTRACT_FORWARD = ["device", "status", "note", "is_A", "n", "rs_ohm", "points", "fit_rms_V",
-                    "self_heating_K"]
+CONTRACT_FORWARD = ["device", "status", "note", "reason_code", "is_A", "n", "rs_ohm", "points",
+                    "fit_rms_V", "self_heating_K"]
 
 
 def kinset(*args):

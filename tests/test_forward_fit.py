@@ -118,18 +118,24 @@ def test_self_heating_warning():
     assert one(out2, "B")["status"] == "ok"
 
 
-def test_self_heating_correction_removes_the_bias():
-    # A DC sweep heats the junction by I·V·Rth: simulate that (the junction law at
-    # ambient + ΔT), then fit with and without the correction.
-    rth = 300.0
+def dc_heated_sweep(rth):
+    """A DC sweep of device H whose junction runs at ambient + I·V·Rth (the junction law
+    at that temperature, solved as a fixed point)."""
     currents = np.logspace(-5, np.log10(2e-2), 25)
     v = voltage_from_current(currents, 2.7e-9, 1.85, 0.6, T25)
     for _ in range(50):   # fixed point of V = f(I, T_amb + I·V·Rth)
         t = T25 + currents * v * rth
         v = voltage_from_current(currents, saturation_current_at(2.7e-9, t, T25, 1.85, 1.11, 3.0),
                                  1.85, 0.6, t)
-    pts = pd.DataFrame({"device": "H", "voltage": v, "current": currents, "temperature": T25,
-                        "position": np.nan, "source": "m", "line": 0})
+    return pd.DataFrame({"device": "H", "voltage": v, "current": currents, "temperature": T25,
+                         "position": np.nan, "source": "m", "line": 0})
+
+
+def test_self_heating_correction_removes_the_bias():
+    # A DC sweep heats the junction by I·V·Rth: simulate that (the junction law at
+    # ambient + ΔT), then fit with and without the correction.
+    rth = 300.0
+    pts = dc_heated_sweep(rth)
     warn, _ = fit_forward(pts, ForwardSettings(T25, T25, 1.11, 3.0, rth))
     fixed, _ = fit_forward(pts, ForwardSettings(T25, T25, 1.11, 3.0, rth, correct_self_heating=True))
     assert one(warn, "H")["status"] == "warning"

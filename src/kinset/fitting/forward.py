@@ -22,11 +22,48 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import (group_summer, grouped_normal_equations, inverse_diagonal,
-                                  solve_stack)
+from kinset.fitting.batch import (Groups, group_summer, grouped_normal_equations,
+                                  inverse_diagonal, solve_stack)
 from kinset.format import si
+from kinset.outcomes import Catalogue, Finding, Note, compose
 from kinset.physics.constants import ZERO_CELSIUS, thermal_voltage
 from kinset.physics.forward import forward_voltage_tempco
+
+# What a forward fit can say about a device, in the order its notes are given: the one
+# reason a device has no usable model comes first, then what was left out of the fit,
+# then what the fit shows, then self-heating.
+NOTES = Catalogue("forward", [
+    Note("no_usable_reading", "rejected", "no usable forward reading"),
+    Note("reversed_leads", "rejected",
+         "every reading has negative voltage and current: reversed leads or sign convention "
+         "(forward readings are positive)"),
+    Note("single_point", "warning",
+         "single point at {current}, cannot see crossing curves; usable only at its own "
+         "current"),
+    Note("two_points", "warning",
+         "two points ({low}, {high}): too few to fit; usable only at their own currents"),
+    Note("not_converged", "rejected",
+         "the fit did not converge: readings do not follow a diode law"),
+    Note("files_disagree", "rejected",
+         "readings in {count} files ({files}) disagree: the fit to all of them is off by "
+         "{rms} rms; one id on two parts? Check the files"),
+    Note("nonpositive_current", "ok", "{count} reading(s) with zero or negative current ignored"),
+    Note("current_limit", "ok", "{count} reading(s) at the current limit near {limit} left out"),
+    Note("voltage_limit", "ok", "{count} reading(s) at the voltage limit left out"),
+    Note("files_combined", "ok", "readings from {count} files combined"),
+    Note("conflicting_positions", "warning", "conflicting tape positions {low:.0f} and {high:.0f}"),
+    Note("poor_fit", "warning",
+         "poor fit: rms residual {rms} (noisy readings or not a single junction)"),
+    Note("unusual_n", "warning", "ideality N = {n:.3g} is outside the usual {low}–{high}"),
+    Note("rs_at_zero", "ok", "series resistance not resolved (RS at 0)"),
+    Note("self_heating_corrected", "ok",
+         "junction temperature corrected for self-heating of up to {heat:.2g} K ({shift} at "
+         "{current})"),
+    Note("self_heating", "warning",
+         "self-heating up to {heat:.2g} K shifts the forward voltage by about {shift} at "
+         "{current}; pulse the test, lower the current, or set 'self_heating: correct' for "
+         "DC readings"),
+])
 
 # Plateau at the top of a sweep: points within this fraction of the device's
 # largest current, spread over more than PLATEAU_V in voltage, sat at a current limit.
@@ -185,42 +222,45 @@ def _ranks(sizes):
     return np.arange(int(sizes.sum())) - starts
 
 
-class _Segments:
-    """Per-device reductions over points sorted by device (contiguous blocks)."""
+@dataclass
+class _Readings:
+    """The prepare stage's result: readings sorted by device, and what each one is.
 
-    def __init__(self, codes: np.ndarray, n: int):
-        self.counts = np.bincount(codes, minlength=n)
-        self.starts = np.concatenate([[0], np.cumsum(self.counts)[:-1]])
-        self.codes = codes
+    Per point (sorted by device): current, voltage, junction temperature [K] (ambient
+    where none was given, plus I·V·Rth when self-heating is corrected), the I·V·Rth
+    rise ``d_t`` of usable points, and the masks ``finite``, ``usable`` (finite, I > 0),
+    ``at_ilim`` / ``at_vlim`` (on an instrument's limit) and ``used`` (enters the fit).
+    Per device: ``distinct``, the number of distinct currents among used points.
+    """
 
-    def max(self, x):
-        return np.fmax.reduceat(x, self.starts)
+    names: np.ndarray
+    groups: Groups
+    cur: np.ndarray
+    volt: np.ndarray
+    temp: np.ndarray
+    d_t: np.ndarray
+    pos: np.ndarray
+    src: np.ndarray
+    line: np.ndarray
+    finite: np.ndarray
+    usable: np.ndarray
+    at_ilim: np.ndarray
+    at_vlim: np.ndarray
+    used: np.ndarray
+    distinct: np.ndarray
 
-    def min(self, x):
-        return np.fmin.reduceat(x, self.starts)
+    @property
+    def fit_dev(self) -> np.ndarray:
+        """Devices with enough distinct currents (three) for a fit of IS, N and RS."""
+        return self.distinct >= 3
 
-    def count(self, mask):
-        return np.add.reduceat(mask.astype(np.int64), self.starts)
-
-    def spread(self, x, mask):
-        """max − min of x over the masked points of each device (NaN where none)."""
-        y = np.where(mask, x, np.nan)
-        return self.max(y) - self.min(y)
-
-    def each(self, per_device):
-        return per_device[self.codes]
-
-    def distinct(self, x, mask):
-        """Number of distinct values of x among the masked points of each device."""
-        sel = np.flatnonzero(mask)
-        order = np.lexsort((x[sel], self.codes[sel]))
-        d, v = self.codes[sel][order], x[sel][order]
-        new = np.ones(len(d), dtype=bool)
-        new[1:] = (d[1:] != d[:-1]) | (v[1:] != v[:-1])
-        return np.bincount(d[new], minlength=len(self.counts))
+    def used_range(self, x) -> tuple[np.ndarray, np.ndarray]:
+        """Smallest and largest x over each device's used points (NaN where none)."""
+        y = np.where(self.used, x, np.nan)
+        return self.groups.min(y), self.groups.max(y)
 
 
-def _plateaus(seg: _Segments, cur, volt, usable):
+def _plateaus(seg: Groups, cur, volt, usable):
     """Points at an instrument's limit: a top-of-sweep plateau in current or voltage."""
     imax = seg.each(seg.max(np.where(usable, cur, np.nan)))
     near_i = usable & (cur >= imax * (1 - PLATEAU_REL))
@@ -232,9 +272,211 @@ def _plateaus(seg: _Segments, cur, volt, usable):
     return at_current_limit, at_voltage_limit
 
 
+def _prepare(points: pd.DataFrame, s: ForwardSettings) -> _Readings:
+    """Sort the readings by device once and mark which of them a fit may use."""
+    codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
+    order = np.argsort(codes, kind="stable")
+    seg = Groups(codes[order], len(names))
+    cur = points["current"].to_numpy(dtype=float)[order]
+    volt = points["voltage"].to_numpy(dtype=float)[order]
+    temp = points["temperature"].to_numpy(dtype=float)[order]
+    temp = np.where(np.isfinite(temp), temp, s.ambient_temperature)
+    finite = np.isfinite(cur) & np.isfinite(volt)
+    usable = finite & (cur > 0)
+    at_ilim, at_vlim = _plateaus(seg, cur, volt, usable)
+    used = usable & ~at_ilim & ~at_vlim
+    d_t = np.where(usable, cur * volt * s.thermal_resistance, 0.0)
+    if s.correct_self_heating:
+        temp = temp + d_t      # steady-state DC reading: the junction runs warmer
+    # Distinct currents among used points decide whether a fit is possible.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        distinct = seg.distinct(np.round(np.log(cur), 6), used)
+    return _Readings(
+        names=names, groups=seg, cur=cur, volt=volt, temp=temp, d_t=d_t,
+        pos=points["position"].to_numpy(dtype=float)[order],
+        src=points["source"].astype(str).to_numpy()[order],
+        line=points["line"].to_numpy()[order],
+        finite=finite, usable=usable, at_ilim=at_ilim, at_vlim=at_vlim, used=used,
+        distinct=distinct)
+
+
+def solve_forward(idx: np.ndarray, k: int, cur: np.ndarray, volt: np.ndarray,
+                  temp: np.ndarray, s: ForwardSettings
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Fit (ln IS0, N, RS) to the points of ``k`` devices: arrays in, arrays out.
+
+    ``idx`` is each point's device (0..k-1), ``temp`` its junction temperature [K].
+    Returns the parameters (k, 3) (NaN where the start was unusable), their standard
+    errors (k, 3) from the Jacobian at the solution, and the rms residual (k,) [V].
+    """
+    lni = np.log(cur)
+    vt = thermal_voltage(temp)
+    lt = np.log(temp / s.reference_temperature)
+    theta_m1 = temp / s.reference_temperature - 1.0
+    vadj = volt + s.xti * vt * lt + theta_m1 * s.activation_energy
+    p0 = _start(idx, k, lni, cur, vadj, vt, lt, theta_m1, s.xti, s.activation_energy)
+    p, ssr, m, ok = levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, s.xti,
+                                        s.activation_energy, p0)
+    _, jac = _model(p[idx, 0], p[idx, 1], p[idx, 2], lni, cur, lt, theta_m1, vt,
+                    s.xti, s.activation_energy)
+    jtj, _ = grouped_normal_equations(idx, jac, np.zeros(len(idx)), k)
+    dof = m - 3
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s2 = np.where(dof > 0, ssr / np.maximum(dof, 1), np.nan)
+        cov_diag = inverse_diagonal(jtj, rcond=1e-15)
+        return (np.where(ok[:, None], p, np.nan), np.sqrt(s2[:, None] * cov_diag),
+                np.sqrt(ssr / m))
+
+
+def _solve(r: _Readings, s: ForwardSettings):
+    """:func:`solve_forward` on the used points of the devices that can be fitted;
+    parameters, standard errors and rms per device of the reel (NaN for the others)."""
+    n_dev = len(r.names)
+    params = np.full((n_dev, 3), np.nan)
+    se = np.full((n_dev, 3), np.nan)
+    rms = np.full(n_dev, np.nan)
+    sel = np.flatnonzero(r.used & r.groups.each(r.fit_dev))
+    if len(sel):
+        fit_ids = np.flatnonzero(r.fit_dev)
+        remap = np.full(n_dev, -1)
+        remap[fit_ids] = np.arange(len(fit_ids))
+        idx = remap[r.groups.codes[sel]]
+        params[fit_ids], se[fit_ids], rms[fit_ids] = solve_forward(
+            idx, len(fit_ids), r.cur[sel], r.volt[sel], r.temp[sel], s)
+    return params, se, rms
+
+
+def _self_heating(r: _Readings, params: np.ndarray, s: ForwardSettings):
+    """Per device: the largest I·V·Rth [K] among used points, the largest forward-voltage
+    shift it causes [V], and the current of the first point with that shift."""
+    seg, used = r.groups, r.used
+    p_pt = params[seg.codes]
+    have = used & np.isfinite(p_pt).all(axis=1)
+    tempco = np.full(len(r.cur), TEMPCO_NO_MODEL)
+    if have.any() and s.thermal_resistance > 0:
+        tempco[have] = forward_voltage_tempco(
+            r.cur[have], np.exp(p_pt[have, 0]), p_pt[have, 1], p_pt[have, 2], r.temp[have],
+            s.reference_temperature, s.activation_energy, s.xti)
+    shift = np.where(used, np.abs(tempco) * r.d_t, 0.0)
+    heat_k = seg.max(np.where(used, r.d_t, np.nan))
+    shift_max = seg.max(shift)
+    top = np.flatnonzero((shift == seg.each(shift_max)) & used)
+    shift_at = np.full(len(r.names), np.nan)
+    shift_at[seg.codes[top[::-1]]] = r.cur[top[::-1]]      # first such point per device
+    return heat_k, shift_max, shift_at
+
+
+def _files(r: _Readings) -> tuple[np.ndarray, object]:
+    """Per device: how many files its readings came from, and a callable naming them."""
+    seg = r.groups
+    # Each file's rows are contiguous in the input, so after the stable sort a device's
+    # rows change file exactly (files − 1) times.
+    change = np.zeros(len(r.src), dtype=bool)
+    change[1:] = (r.src[1:] != r.src[:-1]) & (seg.codes[1:] == seg.codes[:-1])
+
+    def names(d: int) -> str:
+        own = r.src[seg.starts[d]:seg.starts[d] + seg.counts[d]]
+        return ", ".join(sorted({Path(f).name for f in own}))
+    return 1 + seg.count(change), names
+
+
+def _diagnose(r: _Readings, params, rms, heating, s: ForwardSettings) -> list[Finding]:
+    """What each device's readings and fit show, as findings in the order of its notes."""
+    seg = r.groups
+    n_used = seg.count(r.used)
+    i_min, i_max = r.used_range(r.cur)
+    none_used = n_used == 0
+    reversed_ = seg.count(r.finite & (r.cur < 0) & (r.volt < 0)) == seg.counts
+    too_few = ~none_used & ~r.fit_dev
+    fitted = r.fit_dev & np.isfinite(params).all(axis=1)
+    n_files, file_names = _files(r)
+    poor = fitted & (rms > POOR_FIT_RMS_V)
+    pos_min, pos_max = seg.min(r.pos), seg.max(r.pos)
+    n_fit = params[:, 1]
+    heat_k, shift_max, shift_at = heating
+    heated = ~none_used & (shift_max > SELF_HEATING_SHIFT_V)
+    heat_fields = {"heat": heat_k, "shift": lambda d: si(shift_max[d], "V", 2),
+                   "current": lambda d: si(shift_at[d], "A")}
+    rms_text = {"rms": lambda d: si(rms[d], "V")}
+    i_limit = seg.max(np.where(r.at_ilim, r.cur, np.nan))
+    n_nonpos, n_ilim, n_vlim = (seg.count(r.finite & (r.cur <= 0)), seg.count(r.at_ilim),
+                                seg.count(r.at_vlim))
+    return [
+        Finding("reversed_leads", none_used & reversed_),
+        Finding("no_usable_reading", none_used & ~reversed_),
+        Finding("single_point", too_few & (r.distinct == 1),
+                {"current": lambda d: si(i_min[d], "A")}),
+        Finding("two_points", too_few & (r.distinct != 1),
+                {"low": lambda d: si(i_min[d], "A"), "high": lambda d: si(i_max[d], "A")}),
+        Finding("not_converged", r.fit_dev & ~fitted),
+        # Files that each follow a diode law but not together: most often one id written
+        # on two parts. Their mixture must not be matched as one part.
+        Finding("files_disagree", poor & (n_files > 1),
+                {"count": n_files, "files": file_names, **rms_text}),
+        Finding("nonpositive_current", n_nonpos > 0, {"count": n_nonpos}),
+        Finding("current_limit", n_ilim > 0,
+                {"count": n_ilim, "limit": lambda d: si(i_limit[d], "A")}),
+        Finding("voltage_limit", n_vlim > 0, {"count": n_vlim}),
+        Finding("files_combined", n_files > 1, {"count": n_files}),
+        Finding("conflicting_positions", np.isfinite(pos_min) & (pos_min != pos_max),
+                {"low": pos_min, "high": pos_max}),
+        Finding("poor_fit", poor & (n_files == 1), rms_text),
+        Finding("unusual_n", fitted & ~((USUAL_N[0] <= n_fit) & (n_fit <= USUAL_N[1])),
+                {"n": n_fit, "low": USUAL_N[0], "high": USUAL_N[1]}),
+        Finding("rs_at_zero", fitted & (params[:, 2] == 0.0)),
+        Finding("self_heating_corrected", heated & s.correct_self_heating, heat_fields),
+        Finding("self_heating", heated & (not s.correct_self_heating), heat_fields),
+    ]
+
+
+def _table(r: _Readings, params, se, rms, heat_k, findings: list[Finding],
+           s: ForwardSettings) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The device table (status, note and reason_code composed from the findings once)
+    and the readings table."""
+    status, note, reason_code = compose(len(r.names), findings, NOTES)
+    i_min, i_max = r.used_range(r.cur)
+    t_min, t_max = r.used_range(r.temp)
+    is_a = np.exp(params[:, 0])
+    out = pd.DataFrame({
+        "device": r.names.astype(str),
+        "status": status,
+        "note": note,
+        "reason_code": reason_code,
+        "is_A": is_a,
+        "n": params[:, 1],
+        "rs_ohm": params[:, 2],
+        "points": r.groups.count(r.used),
+        "fit_rms_V": rms,
+        "self_heating_K": heat_k,
+        "is_A_se": is_a * se[:, 0],
+        "n_se": se[:, 1],
+        "rs_ohm_se": se[:, 2],
+        "i_min_A": i_min,
+        "i_max_A": i_max,
+        "t_min_C": t_min - ZERO_CELSIUS,
+        "t_max_C": t_max - ZERO_CELSIUS,
+        "position": r.groups.min(r.pos),
+        "reference_temperature_C": s.reference_temperature - ZERO_CELSIUS,
+        "eg_eV": s.activation_energy,
+        "xti": s.xti,
+    })
+    readings = pd.DataFrame({
+        "device": np.asarray(r.names, dtype=object)[r.groups.codes],
+        "current_A": r.cur, "voltage_V": r.volt, "temperature_C": r.temp - ZERO_CELSIUS,
+        "used": r.used.astype(int),
+        "source": r.src,
+        "line": r.line,
+    })
+    return out, readings
+
+
 def fit_forward(points: pd.DataFrame, settings: ForwardSettings
                 ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Extract IS, N, RS for every device in a table of forward readings.
+
+    Four stages: prepare (sort by device, mark usable readings and plateaus), solve
+    (:func:`solve_forward`), diagnose (findings per device, :data:`NOTES`) and table
+    (status, note and reason_code by :func:`kinset.outcomes.compose`).
 
     Parameters
     ----------
@@ -246,195 +488,15 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
     Returns
     -------
     devices : DataFrame
-        One row per device, sorted by id: ``device, status, note, is_A, n, rs_ohm,
-        points, fit_rms_V, self_heating_K`` and the standard errors, current and
+        One row per device, sorted by id: ``device, status, note, reason_code, is_A, n,
+        rs_ohm, points, fit_rms_V, self_heating_K`` and the standard errors, current and
         temperature ranges and the constants the parameters hold with.
     readings : DataFrame
         Every reading, grouped by device in input order, with ``used`` (whether it
         entered the fit), for the report and for single readings.
     """
-    s = settings
-    codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
-    order = np.argsort(codes, kind="stable")
-    dev_codes = codes[order]
-    n_dev = len(names)
-    seg = _Segments(dev_codes, n_dev)
-    cur = points["current"].to_numpy(dtype=float)[order]
-    volt = points["voltage"].to_numpy(dtype=float)[order]
-    temp = points["temperature"].to_numpy(dtype=float)[order]
-    temp = np.where(np.isfinite(temp), temp, s.ambient_temperature)
-    finite = np.isfinite(cur) & np.isfinite(volt)
-    nonpos = finite & (cur <= 0)
-    usable = finite & (cur > 0)
-    at_ilim, at_vlim = _plateaus(seg, cur, volt, usable)
-    used = usable & ~at_ilim & ~at_vlim
-    d_t = np.where(usable, cur * volt * s.thermal_resistance, 0.0)
-    if s.correct_self_heating:
-        temp = temp + d_t      # steady-state DC reading: the junction runs warmer
-
-    n_total = seg.counts
-    n_nonpos, n_used = seg.count(nonpos), seg.count(used)
-    n_ilim, n_vlim = seg.count(at_ilim), seg.count(at_vlim)
-    all_reversed = seg.count(finite & (cur < 0) & (volt < 0)) == n_total
-    # Distinct currents among used points decide whether a fit is possible.
-    with np.errstate(divide="ignore", invalid="ignore"):
-        distinct = seg.distinct(np.round(np.log(cur), 6), used)
-    fit_dev = distinct >= 3
-
-    params = np.full((n_dev, 3), np.nan)
-    se = np.full((n_dev, 3), np.nan)
-    rms = np.full(n_dev, np.nan)
-    rows = used & fit_dev[dev_codes]
-    if rows.any():
-        sel = np.flatnonzero(rows)
-        fit_ids = np.flatnonzero(fit_dev)
-        remap = np.full(n_dev, -1)
-        remap[fit_ids] = np.arange(len(fit_ids))
-        idx = remap[dev_codes[sel]]
-        k = len(fit_ids)
-        c, v, t = cur[sel], volt[sel], temp[sel]
-        lni = np.log(c)
-        vt = thermal_voltage(t)
-        lt = np.log(t / s.reference_temperature)
-        theta_m1 = t / s.reference_temperature - 1.0
-        vadj = v + s.xti * vt * lt + theta_m1 * s.activation_energy
-        p0 = _start(idx, k, lni, c, vadj, vt, lt, theta_m1, s.xti, s.activation_energy)
-        p, ssr, m, ok = levenberg_marquardt(idx, k, lni, c, v, lt, theta_m1, vt, s.xti,
-                                            s.activation_energy, p0)
-        _, jac = _model(p[idx, 0], p[idx, 1], p[idx, 2], lni, c, lt, theta_m1, vt,
-                        s.xti, s.activation_energy)
-        jtj, _ = grouped_normal_equations(idx, jac, np.zeros(len(idx)), k)
-        dof = m - 3
-        with np.errstate(invalid="ignore", divide="ignore"):
-            s2 = np.where(dof > 0, ssr / np.maximum(dof, 1), np.nan)
-            cov_diag = inverse_diagonal(jtj, rcond=1e-15)
-            params[fit_ids] = np.where(ok[:, None], p, np.nan)
-            se[fit_ids] = np.sqrt(s2[:, None] * cov_diag)
-            rms[fit_ids] = np.sqrt(ssr / m)
-
-    # Self-heating: dT = I V Rth at each used point, and the shift it causes.
-    p_pt = params[dev_codes]
-    have = used & np.isfinite(p_pt).all(axis=1)
-    tempco = np.full(len(cur), TEMPCO_NO_MODEL)
-    if have.any() and s.thermal_resistance > 0:
-        tempco[have] = forward_voltage_tempco(
-            cur[have], np.exp(p_pt[have, 0]), p_pt[have, 1], p_pt[have, 2], temp[have],
-            s.reference_temperature, s.activation_energy, s.xti)
-    shift = np.where(used, np.abs(tempco) * d_t, 0.0)
-    heat_k = seg.max(np.where(used, d_t, np.nan))
-    shift_max = seg.max(shift)
-    top = np.flatnonzero((shift == seg.each(shift_max)) & used)
-    shift_at = np.full(n_dev, np.nan)
-    shift_at[dev_codes[top[::-1]]] = cur[top[::-1]]      # first such point per device
-    i_limit = seg.max(np.where(at_ilim, cur, np.nan))
-    i_min = seg.min(np.where(used, cur, np.nan))
-    i_max = seg.max(np.where(used, cur, np.nan))
-    t_min = seg.min(np.where(used, temp, np.nan))
-    t_max = seg.max(np.where(used, temp, np.nan))
-    pos = points["position"].to_numpy(dtype=float)[order]
-    pos_min, pos_max = seg.min(pos), seg.max(pos)
-    # Each file's rows are contiguous in the input, so after the stable sort a device's
-    # rows change file exactly (files − 1) times.
-    src = points["source"].astype(str).to_numpy()[order]
-    change = np.zeros(len(src), dtype=bool)
-    change[1:] = (src[1:] != src[:-1]) & (dev_codes[1:] == dev_codes[:-1])
-    n_files = 1 + seg.count(change)
-
-    fitted_ok = np.isfinite(params).all(axis=1)
-    status, notes = [], []
-    for d in range(n_dev):
-        note: list[str] = []
-        st = "ok"
-        if n_nonpos[d]:
-            note.append(f"{n_nonpos[d]} reading(s) with zero or negative current ignored")
-        if n_ilim[d]:
-            note.append(f"{n_ilim[d]} reading(s) at the current limit near "
-                        f"{si(i_limit[d], 'A')} left out")
-        if n_vlim[d]:
-            note.append(f"{n_vlim[d]} reading(s) at the voltage limit left out")
-        if n_files[d] > 1:
-            note.append(f"readings from {n_files[d]} files combined")
-        if np.isfinite(pos_min[d]) and pos_min[d] != pos_max[d]:
-            st = "warning"
-            note.append(f"conflicting tape positions {pos_min[d]:.0f} and {pos_max[d]:.0f}")
-        if n_used[d] == 0:
-            st = "rejected"
-            if all_reversed[d]:
-                note.insert(0, "every reading has negative voltage and current: reversed "
-                            "leads or sign convention (forward readings are positive)")
-            else:
-                note.insert(0, "no usable forward reading")
-        elif not fit_dev[d]:
-            st = "warning"
-            if distinct[d] == 1:
-                note.insert(0, f"single point at {si(i_min[d], 'A')}, cannot see crossing "
-                            f"curves; usable only at its own current")
-            else:
-                note.insert(0, f"two points ({si(i_min[d], 'A')}, {si(i_max[d], 'A')}): too "
-                            f"few to fit; usable only at their own currents")
-        elif not fitted_ok[d]:
-            st = "rejected"
-            note.insert(0, "the fit did not converge: readings do not follow a diode law")
-        else:
-            if rms[d] > POOR_FIT_RMS_V and n_files[d] > 1:
-                # Files that each follow a diode law but not together: most often one id
-                # written on two parts. Their mixture must not be matched as one part.
-                st = "rejected"
-                files = ", ".join(sorted({Path(f).name for f in src[dev_codes == d]}))
-                note.insert(0, f"readings in {n_files[d]} files ({files}) disagree: the "
-                            f"fit to all of them is off by {si(rms[d], 'V')} rms; one id on "
-                            f"two parts? Check the files")
-            elif rms[d] > POOR_FIT_RMS_V:
-                st = "warning"
-                note.append(f"poor fit: rms residual {si(rms[d], 'V')} (noisy readings or "
-                            f"not a single junction)")
-            if not USUAL_N[0] <= params[d, 1] <= USUAL_N[1]:
-                st = "warning"
-                note.append(f"ideality N = {params[d, 1]:.3g} is outside the usual "
-                            f"{USUAL_N[0]}–{USUAL_N[1]}")
-            if params[d, 2] == 0.0:
-                note.append("series resistance not resolved (RS at 0)")
-        if n_used[d] and shift_max[d] > SELF_HEATING_SHIFT_V and s.correct_self_heating:
-            note.append(f"junction temperature corrected for self-heating of up to "
-                        f"{heat_k[d]:.2g} K ({si(shift_max[d], 'V', 2)} at {si(shift_at[d], 'A')})")
-        elif n_used[d] and shift_max[d] > SELF_HEATING_SHIFT_V:
-            if st == "ok":
-                st = "warning"
-            note.append(f"self-heating up to {heat_k[d]:.2g} K shifts the forward voltage by "
-                        f"about {si(shift_max[d], 'V', 2)} at {si(shift_at[d], 'A')}; pulse "
-                        f"the test, lower the current, or set 'self_heating: correct' "
-                        f"for DC readings")
-        status.append(st)
-        notes.append("; ".join(note))
-
-    is_a = np.exp(params[:, 0])
-    out = pd.DataFrame({
-        "device": names.astype(str),
-        "status": status,
-        "note": notes,
-        "is_A": is_a,
-        "n": params[:, 1],
-        "rs_ohm": params[:, 2],
-        "points": n_used,
-        "fit_rms_V": rms,
-        "self_heating_K": heat_k,
-        "is_A_se": is_a * se[:, 0],
-        "n_se": se[:, 1],
-        "rs_ohm_se": se[:, 2],
-        "i_min_A": i_min,
-        "i_max_A": i_max,
-        "t_min_C": t_min - ZERO_CELSIUS,
-        "t_max_C": t_max - ZERO_CELSIUS,
-        "position": pos_min,
-        "reference_temperature_C": s.reference_temperature - ZERO_CELSIUS,
-        "eg_eV": s.activation_energy,
-        "xti": s.xti,
-    })
-    readings = pd.DataFrame({
-        "device": np.asarray(names, dtype=object)[dev_codes],
-        "current_A": cur, "voltage_V": volt, "temperature_C": temp - ZERO_CELSIUS,
-        "used": used.astype(int),
-        "source": points["source"].astype(str).to_numpy()[order],
-        "line": points["line"].to_numpy()[order],
-    })
-    return out, readings
+    readings = _prepare(points, settings)
+    params, se, rms = _solve(readings, settings)
+    heating = _self_heating(readings, params, settings)
+    findings = _diagnose(readings, params, rms, heating, settings)
+    return _table(readings, params, se, rms, heating[0], findings, settings)
