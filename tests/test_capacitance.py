@@ -106,6 +106,7 @@ def test_every_device_gets_a_row():
     vna = pd.DataFrame({"device": ["BAD"], "kind": ["vna"], "reverse_voltage": [2.0],
                         "capacitance": [np.nan], "status": ["rejected"],
                         "note": ["x_2V.s1p: does not parse as a Touchstone file"],
+                        "reason_code": ["touchstone_unusable"],
                         "source": ["x_2V.s1p"], "line": [4]})
     table, points = fit_capacitance(pd.concat([pts, vna], ignore_index=True), SETTINGS)
     t = table.set_index("device")
@@ -117,6 +118,13 @@ def test_every_device_gets_a_row():
     assert t.loc["BAD", "status"] == "rejected" and "x_2V.s1p" in t.loc["BAD", "note"]
     assert (t["note"] != "").all()
     assert len(points) == len(pts) + 1
+    # Codes beside the notes; a rejected row opens with the reason it was rejected.
+    assert t["reason_code"].to_dict() == {
+        "BAD": "no_usable_point;touchstone_rejected", "FWD": "no_usable_point;forward_bias_points",
+        "NEG": "no_usable_point;nonpositive_points", "OK": "fitted", "TWO": "too_few_biases"}
+    assert points.loc[points["device"] == "BAD", "reason_code"].tolist() == ["touchstone_unusable"]
+    for frame in (table, points):
+        assert list(frame.columns)[list(frame.columns).index("note") + 1] == "reason_code"
 
 
 def test_capacitance_at_a_bias_inside_the_range_only():

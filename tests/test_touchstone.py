@@ -189,6 +189,7 @@ def test_without_the_empty_fixture_the_parasitic_stays(tmp_path):
     write(dut, cap / "dut.s1p")
     row = capacitance_vna_points(write_index(cap, [("dut.s1p", "D1", 3, "reflection")])).iloc[0]
     assert row["status"] == "warning" and "not removed" in row["note"]
+    assert row["reason_code"] == "series_rlc_fit;no_open_for_fixture"
     assert row["capacitance"] > 1.2 * C_DUT
 
 
@@ -228,6 +229,8 @@ def test_bad_files_are_rejected_rows_naming_the_file(tmp_path):
                              ("D", "two.s2p", "2 port"), ("E", "good.s1p", "no empty-fixture")):
         assert points.loc[dev, "status"] == "rejected"
         assert points.loc[dev, "note"].startswith(file) and words in points.loc[dev, "note"]
+        assert points.loc[dev, "reason_code"] == "touchstone_unusable"
+    assert points.loc["A", "reason_code"] == "series_rlc_fit;open_removed"
 
 
 @pytest.mark.parametrize("bad", ["../../outside.s1p", "/tmp/abs.s1p", "C:/vna/x.s1p",

@@ -114,14 +114,14 @@ def capacitance_vna_points(index: str | Path, devices: list[str] | None = None,
                            files: list[str | Path] | None = None) -> pd.DataFrame:
     """One capacitance point per Touchstone file that ``index.csv`` lists (for the given
     devices or files; default all): what ``kinset parse capacitance_vna`` stores."""
-    from kinset.fitting.capacitance import sweep_capacitance
+    from kinset.fitting.touchstone import fit_touchstone
     from kinset.io.touchstone import read_vna
-    return sweep_capacitance(read_vna(index, devices=devices, files=files))
+    return fit_touchstone(read_vna(index, devices=devices, files=files))
 
 
 def _capacitance_points(reel: Reel, files: list[str | Path]) -> pd.DataFrame:
     """C–V readings and VNA points from raw files, parsed files, or the whole reel."""
-    from kinset.fitting.capacitance import sweep_capacitance
+    from kinset.fitting.touchstone import fit_touchstone
     from kinset.io.datasets import read_capacitance
     from kinset.io.parsed import load_parsed
     from kinset.io.touchstone import (INDEX_NAME, TOUCHSTONE_NAME, read_vna_index,
@@ -135,7 +135,7 @@ def _capacitance_points(reel: Reel, files: list[str | Path]) -> pd.DataFrame:
         if index.is_file():
             frames.append(capacitance_vna_points(index))
         listed = read_vna_index(index) if index.is_file() else None
-        frames.append(sweep_capacitance(unlisted_measurements(unlisted_touchstone(folder, listed))))
+        frames.append(fit_touchstone(unlisted_measurements(unlisted_touchstone(folder, listed))))
         if not any(len(f) for f in frames):
             raise InputError("no capacitance files found (C–V tables, or Touchstone files "
                              "with index.csv)", folder)
@@ -153,7 +153,7 @@ def _capacitance_points(reel: Reel, files: list[str | Path]) -> pd.DataFrame:
         named = set() if listed is None else set(listed["path"])
         if named:
             frames.append(capacitance_vna_points(index, files=touchstone))
-        frames.append(sweep_capacitance(unlisted_measurements(
+        frames.append(fit_touchstone(unlisted_measurements(
             [Path(f) for f in touchstone if os.path.normpath(f) not in named])))
     frames = [f for f in frames if len(f)] or frames[:1]
     return pd.concat(frames, ignore_index=True)
