@@ -241,8 +241,8 @@ def test_demo_reel_capacitance_covers_every_part():
 
 
 def test_cli_parse_then_extract_equals_direct_extraction(tmp_path):
-    """`kinset parse capacitance_vna` + `kinset parse capacitance` + `kinset extract
-    capacitance` on the parsed files give the same table as reading the reel at once."""
+    """`kinset fit-touchstone` + `kinset parse capacitance` + `kinset extract capacitance`
+    on the files they write give the same table as reading the reel at once."""
     import subprocess
     import sys
 
@@ -257,7 +257,7 @@ def test_cli_parse_then_extract_equals_direct_extraction(tmp_path):
     parts = _parts(4, seed=5)
     reel = tmp_path / "reel"
     build_reel(reel, parts)
-    kinset("parse", "capacitance_vna", "-o", tmp_path / "v.npz", reel / "capacitance" / "index.csv",
+    kinset("fit-touchstone", "-o", tmp_path / "v.npz", reel / "capacitance" / "index.csv",
            "--devices", "P02", "P03")
     kinset("parse", "capacitance", "-o", tmp_path / "c.npz", reel / "capacitance" / "cv_table.csv")
     out = tmp_path / "out" / "capacitance.csv"

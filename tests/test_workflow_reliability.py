@@ -73,11 +73,11 @@ def run(work: Path, reel: Path, *args: str, timeout: float = 300) -> subprocess.
 def outputs(work: Path, intermediates: bool = True) -> dict[str, str]:
     """SHA-256 of every file the run wrote under results/<reel>/, logs aside.
 
-    ``intermediates=False`` leaves out parsed/*.npz, the workflow's private cache of
-    each input file, which names the file by the path it was read from.
+    ``intermediates=False`` leaves out parsed/*.npz and touchstone/*.npz, the workflow's
+    private cache of each input file, which names the file by the path it was read from.
     """
     base = work / "results" / "demo-0412"
-    skip = {"logs"} | (set() if intermediates else {"parsed"})
+    skip = {"logs"} | (set() if intermediates else {"parsed", "touchstone"})
     files = [p for p in sorted(base.rglob("*")) if p.is_file() and not skip & set(p.parts)
              and not (p.name.startswith(".") and p.name.endswith(".tmp"))]   # a writer's temporary
     return {p.relative_to(base).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
@@ -169,7 +169,7 @@ def cluster(reel, tmp_path_factory) -> tuple[Path, str]:
         pytest.skip("snakemake-executor-plugin-cluster-generic is not installed (pip install -e '.[test]')")
     work = tmp_path_factory.mktemp("cluster")
     moved = shutil.copytree(reel, work / "elsewhere" / "reel")
-    groups = {"parse": "read", "parse_capacitance_vna": "read", "reel_settings": "read",
+    groups = {"parse": "read", "fit_touchstone": "read", "reel_settings": "read",
               "devices": "tables", "match": "apps", "report": "apps",
               **{f"extract_{d}": "tables" for d in EXTRACTIONS}}
     r = run(work, moved, "--executor", "cluster-generic",
