@@ -1,18 +1,19 @@
-# Junction capacitance: the Touchstone files become capacitance points (a few jobs, by stable
-# buckets of device ids: kinset.workflow.vna_groups), the C-V tables are parsed
-# by the generic parse rule, and one job fits CJO, VJ, M of every device.
+# Junction capacitance: a series R-L-C element is fitted to each Touchstone file, giving one
+# capacitance point per file (a few jobs, by stable buckets of device ids:
+# kinset.workflow.vna_groups), the C-V tables are parsed by the generic parse rule, and one
+# job fits CJO, VJ, M of every device.
 
 
-rule parse_capacitance_vna:
+rule fit_touchstone:
     input:
         files=vna_inputs,
         # ancient(): a new row for another device must not rerun this job; this job's
         # own rows are tracked by params.rows.
         index=ancient(PLAN.vna_index),
     output:
-        f"{OUT}/parsed/capacitance_vna/{{group}}.npz",
+        f"{OUT}/parsed/touchstone/{{group}}.npz",
     log:
-        f"{OUT}/logs/parse/capacitance_vna/{{group}}.log",
+        f"{OUT}/logs/fit_touchstone/{{group}}.log",
     wildcard_constraints:
         group=BUCKET_PATTERN,
     params:
@@ -27,14 +28,14 @@ rule parse_capacitance_vna:
     conda:
         "../envs/kinset.yaml"
     shell:
-        "{params.python} -m kinset parse capacitance_vna -o {output} {input.index:q} "
+        "{params.python} -m kinset fit-touchstone -o {output} {input.index:q} "
         "--devices {params.devices:q} 2> {log}"
 
 
 rule extract_capacitance:
     input:
         parsed=PLAN.parsed("capacitance"),
-        vna=PLAN.parsed_vna(),
+        touchstone=PLAN.touchstone_points(),
         # Touchstone files the index does not name: reported as rejected.
         unlisted=PLAN.vna_unlisted,
         reel=ancient(PLAN.reel_yaml),
@@ -56,4 +57,4 @@ rule extract_capacitance:
         "../envs/kinset.yaml"
     shell:
         "{params.python} -m kinset extract capacitance --reel {params.reel:q} "
-        "-o {output.table} {input.parsed} {input.vna} {input.unlisted:q} 2> {log}"
+        "-o {output.table} {input.parsed} {input.touchstone} {input.unlisted:q} 2> {log}"

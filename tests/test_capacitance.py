@@ -106,6 +106,7 @@ def test_every_device_gets_a_row():
     vna = pd.DataFrame({"device": ["BAD"], "kind": ["vna"], "reverse_voltage": [2.0],
                         "capacitance": [np.nan], "status": ["rejected"],
                         "note": ["x_2V.s1p: does not parse as a Touchstone file"],
+                        "reason_code": ["touchstone_unusable"],
                         "source": ["x_2V.s1p"], "line": [4]})
     table, points = fit_capacitance(pd.concat([pts, vna], ignore_index=True), SETTINGS)
     t = table.set_index("device")
@@ -117,6 +118,13 @@ def test_every_device_gets_a_row():
     assert t.loc["BAD", "status"] == "rejected" and "x_2V.s1p" in t.loc["BAD", "note"]
     assert (t["note"] != "").all()
     assert len(points) == len(pts) + 1
+    # Codes beside the notes; a rejected row opens with the reason it was rejected.
+    assert t["reason_code"].to_dict() == {
+        "BAD": "no_usable_point;touchstone_rejected", "FWD": "no_usable_point;forward_bias_points",
+        "NEG": "no_usable_point;nonpositive_points", "OK": "fitted", "TWO": "too_few_biases"}
+    assert points.loc[points["device"] == "BAD", "reason_code"].tolist() == ["touchstone_unusable"]
+    for frame in (table, points):
+        assert list(frame.columns)[list(frame.columns).index("note") + 1] == "reason_code"
 
 
 def test_capacitance_at_a_bias_inside_the_range_only():
@@ -233,8 +241,8 @@ def test_demo_reel_capacitance_covers_every_part():
 
 
 def test_cli_parse_then_extract_equals_direct_extraction(tmp_path):
-    """`kinset parse capacitance_vna` + `kinset parse capacitance` + `kinset extract
-    capacitance` on the parsed files give the same table as reading the reel at once."""
+    """`kinset fit-touchstone` + `kinset parse capacitance` + `kinset extract capacitance`
+    on the files they write give the same table as reading the reel at once."""
     import subprocess
     import sys
 
@@ -249,7 +257,7 @@ def test_cli_parse_then_extract_equals_direct_extraction(tmp_path):
     parts = _parts(4, seed=5)
     reel = tmp_path / "reel"
     build_reel(reel, parts)
-    kinset("parse", "capacitance_vna", "-o", tmp_path / "v.npz", reel / "capacitance" / "index.csv",
+    kinset("fit-touchstone", "-o", tmp_path / "v.npz", reel / "capacitance" / "index.csv",
            "--devices", "P02", "P03")
     kinset("parse", "capacitance", "-o", tmp_path / "c.npz", reel / "capacitance" / "cv_table.csv")
     out = tmp_path / "out" / "capacitance.csv"

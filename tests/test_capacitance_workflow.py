@@ -31,20 +31,20 @@ def test_capacitance_workflow_and_reruns(tmp_path):
     assert {"cj0_F", "vj_V", "m"} <= set(devices.columns) and len(devices) == 4
     assert planned_jobs(tmp_path) == {}
 
-    # A new Touchstone file and its index row: one parse job, the fit, the merge.
+    # A new Touchstone file and its index row: one R–L–C fit job, the C–V fit, the merge.
     cap = tmp_path / "reel" / "capacitance"
     m = media(VNA_FREQ)
     write(dut_one_port(m, 1.0, 1e-9, nagel(2.0, 3e-12, 0.7, 0.5)), cap / "NEW_2V.s1p")
     with open(cap / "index.csv", "a") as fh:
         fh.write("NEW_2V.s1p,NEW,2,reflection\n")
     jobs = planned_jobs(tmp_path)
-    assert jobs == {"parse_capacitance_vna": 1, "extract_capacitance": 1, "devices": 1, "all": 1}
+    assert jobs == {"fit_touchstone": 1, "extract_capacitance": 1, "devices": 1, "all": 1}
 
     # A reel setting the fit reads reruns the fit, not the parsing.
     reel_yaml = tmp_path / "reel" / "reel.yaml"
     reel_yaml.write_text(reel_yaml.read_text() + "capacitance: {package_capacitance: fit}\n")
     jobs = planned_jobs(tmp_path)
-    assert jobs.get("parse", 0) == 0 and jobs["parse_capacitance_vna"] == 1
+    assert jobs.get("parse", 0) == 0 and jobs["fit_touchstone"] == 1
     assert jobs["extract_capacitance"] == 1
 
     # A path escaping the reel stops the workflow with an error naming index.csv and the line.

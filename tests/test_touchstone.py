@@ -21,7 +21,7 @@ import pytest
 import skrf
 
 from kinset.errors import InputError
-from kinset.extract import capacitance_vna_points
+from kinset.extract import touchstone_points
 from kinset.io.touchstone import read_touchstone, read_vna_index
 from kinset.physics.capacitance import fixture_admittance
 
@@ -90,7 +90,7 @@ def test_skrf_networks_round_trip_to_r_and_c(tmp_path, fixture, version):
     name = f"dut.s{ports}p" if version == "1.0" else "dut.ts"
     dut, _ = networks(media(), fixture)
     write(dut, cap / name, version)
-    points = capacitance_vna_points(write_index(cap, [(name, "D1", 2.0, fixture)]))
+    points = touchstone_points(write_index(cap, [(name, "D1", 2.0, fixture)]))
     row = points.iloc[0]
     assert row["status"] != "rejected", row["note"]
     # scikit-rf (DefinedGammaZ0 lumped elements): the values the network was built from.
@@ -105,7 +105,7 @@ def test_reference_impedance_comes_from_the_file(tmp_path):
     write(dut_one_port(media(z0=75.0)), cap / "d75.s1p")
     head = (cap / "d75.s1p").read_text().splitlines()
     assert any(s.startswith("#") and s.rstrip().endswith("75.0") for s in head)
-    row = capacitance_vna_points(write_index(cap, [("d75.s1p", "D1", 1, "reflection")])).iloc[0]
+    row = touchstone_points(write_index(cap, [("d75.s1p", "D1", 1, "reflection")])).iloc[0]
     # scikit-rf: the network was built on a 75-ohm line from these element values.
     assert row["capacitance"] == pytest.approx(C_DUT, rel=C_REL)
     assert row["resistance"] == pytest.approx(R_DUT, rel=R_REL)
@@ -172,7 +172,7 @@ def test_empty_fixture_is_subtracted(tmp_path):
         write(empty, cap / f"open_{fixture}.{ext}")
         rows += [(f"open_{fixture}.{ext}", "open", 3.0, fixture),
                  (f"dut_{fixture}.{ext}", f"D_{fixture}", 3.0, fixture)]
-    points = capacitance_vna_points(write_index(cap, rows)).set_index("device")
+    points = touchstone_points(write_index(cap, rows)).set_index("device")
     for fixture in ("reflection", "series", "shunt"):
         row = points.loc[f"D_{fixture}"]
         assert row["status"] == "ok", row["note"]
@@ -187,8 +187,9 @@ def test_without_the_empty_fixture_the_parasitic_stays(tmp_path):
     cap = tmp_path / "reel" / "capacitance"
     dut, _ = networks(media(FREQ[FREQ <= 1e9]), "reflection", parasitic=0.4e-12)
     write(dut, cap / "dut.s1p")
-    row = capacitance_vna_points(write_index(cap, [("dut.s1p", "D1", 3, "reflection")])).iloc[0]
+    row = touchstone_points(write_index(cap, [("dut.s1p", "D1", 3, "reflection")])).iloc[0]
     assert row["status"] == "warning" and "not removed" in row["note"]
+    assert row["reason_code"] == "series_rlc_fit;no_open_for_fixture"
     assert row["capacitance"] > 1.2 * C_DUT
 
 
@@ -197,7 +198,7 @@ def test_band_excludes_the_ill_conditioned_end(tmp_path):
     cap = tmp_path / "reel" / "capacitance"
     f = np.geomspace(1e6, 3e9, 80)
     write(dut_one_port(media(f)), cap / "n.s1p", noise=2e-4, seed=3)
-    row = capacitance_vna_points(write_index(cap, [("n.s1p", "D1", 0, "reflection")])).iloc[0]
+    row = touchstone_points(write_index(cap, [("n.s1p", "D1", 0, "reflection")])).iloc[0]
     # Circuit theory: |Z| of 1 pF is 50 ohm at 3.2 GHz and 1.6 kohm at 100 MHz; noise
     # on S11 is amplified by about |Z|/(2 Z0) in relative terms (reflection coefficient
     # of a load, Kurokawa 1965), so the kept band lies well above 1 MHz.
@@ -222,12 +223,14 @@ def test_bad_files_are_rejected_rows_naming_the_file(tmp_path):
             ("missing.s1p", "C", 2, "reflection"),
             ("two.s2p", "D", 2, "reflection"),
             ("good.s1p", "E", 7, "reflection")]
-    points = capacitance_vna_points(write_index(cap, rows)).set_index("device")
+    points = touchstone_points(write_index(cap, rows)).set_index("device")
     assert points.loc["A", "status"] == "ok"
     for dev, file, words in (("B", "broken.s1p", "does not parse"), ("C", "missing.s1p", "not found"),
                              ("D", "two.s2p", "2 port"), ("E", "good.s1p", "no empty-fixture")):
         assert points.loc[dev, "status"] == "rejected"
         assert points.loc[dev, "note"].startswith(file) and words in points.loc[dev, "note"]
+        assert points.loc[dev, "reason_code"] == "touchstone_unusable"
+    assert points.loc["A", "reason_code"] == "series_rlc_fit;open_removed"
 
 
 @pytest.mark.parametrize("bad", ["../../outside.s1p", "/tmp/abs.s1p", "C:/vna/x.s1p",

@@ -73,8 +73,9 @@ def run(work: Path, reel: Path, *args: str, timeout: float = 300) -> subprocess.
 def outputs(work: Path, intermediates: bool = True) -> dict[str, str]:
     """SHA-256 of every file the run wrote under results/<reel>/, logs aside.
 
-    ``intermediates=False`` leaves out parsed/*.npz, the workflow's private cache of
-    each input file, which names the file by the path it was read from.
+    ``intermediates=False`` leaves out parsed/ (each input file's arrays, and each
+    Touchstone file's fitted point), the workflow's private cache, which names each file
+    by the path it was read from.
     """
     base = work / "results" / "demo-0412"
     skip = {"logs"} | (set() if intermediates else {"parsed"})
@@ -88,7 +89,7 @@ def expected_files() -> set[str]:
     files = {f"{d}.csv" for d in EXTRACTIONS} | {"forward_readings.csv", "capacitance_points.csv",
                                                    "devices.csv", "reel.json"}
     for app in APPLICATIONS:
-        files |= {f"{app}/{f}" for f in ("sets.csv", "unmatched.csv", "summary.json",
+        files |= {f"{app}/{f}" for f in ("sets.csv", "unmatched.csv", "values.csv", "summary.json",
                                          "report.html", "models.lib", "pick_list.csv")}
     return files
 
@@ -169,7 +170,7 @@ def cluster(reel, tmp_path_factory) -> tuple[Path, str]:
         pytest.skip("snakemake-executor-plugin-cluster-generic is not installed (pip install -e '.[test]')")
     work = tmp_path_factory.mktemp("cluster")
     moved = shutil.copytree(reel, work / "elsewhere" / "reel")
-    groups = {"parse": "read", "parse_capacitance_vna": "read", "reel_settings": "read",
+    groups = {"parse": "read", "fit_touchstone": "read", "reel_settings": "read",
               "devices": "tables", "match": "apps", "report": "apps",
               **{f"extract_{d}": "tables" for d in EXTRACTIONS}}
     r = run(work, moved, "--executor", "cluster-generic",

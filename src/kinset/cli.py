@@ -16,13 +16,15 @@ from kinset.registry import DATASETS, dataset
 def _cmd_parse(args) -> None:
     from kinset.io.parsed import save_parsed
     import pandas as pd
-    if args.dataset == "capacitance_vna":   # index.csv -> one capacitance point per Touchstone file
-        from kinset.extract import capacitance_vna_points
-        save_parsed(pd.concat([capacitance_vna_points(f, devices=args.devices) for f in args.files],
-                              ignore_index=True), args.output)
-        return
     frames = [dataset(args.dataset).read(f) for f in args.files]
     save_parsed(pd.concat(frames, ignore_index=True), args.output)
+
+
+def _cmd_fit_touchstone(args) -> None:
+    """index.csv -> one capacitance point per Touchstone file (a series R–L–C fit each)."""
+    from kinset.extract import touchstone_points
+    from kinset.io.parsed import save_parsed
+    save_parsed(touchstone_points(args.index, devices=args.devices), args.output)
 
 
 def _cmd_extract(args) -> None:
@@ -115,13 +117,17 @@ def build_parser() -> argparse.ArgumentParser:
         k.set_defaults(func=_cmd_extract)
 
     r = sub.add_parser("parse", help="read input files into SI arrays (a workflow step)")
-    r.add_argument("dataset", choices=[d.name for d in DATASETS] + ["capacitance_vna"],
-                   help="capacitance_vna: FILES is capacitance/index.csv; each Touchstone "
-                   "file it lists becomes one capacitance point")
+    r.add_argument("dataset", choices=[d.name for d in DATASETS])
     r.add_argument("-o", "--output", required=True, help="output .npz")
     r.add_argument("files", nargs="+")
-    r.add_argument("--devices", nargs="+", help="capacitance_vna: only these devices' rows")
     r.set_defaults(func=_cmd_parse)
+
+    t = sub.add_parser("fit-touchstone", help="fit a series R–L–C element to each Touchstone "
+                       "file an index lists: one capacitance point per file (a workflow step)")
+    t.add_argument("-o", "--output", required=True, help="output .npz")
+    t.add_argument("index", help="capacitance/index.csv of the reel")
+    t.add_argument("--devices", nargs="+", help="only these devices' rows")
+    t.set_defaults(func=_cmd_fit_touchstone)
 
     d = sub.add_parser("devices", help="merge dataset tables into devices.csv")
     d.add_argument("-o", "--output", required=True)

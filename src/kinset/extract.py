@@ -96,18 +96,19 @@ def capacitance_settings(reel: Reel):
     )
 
 
-def capacitance_vna_points(index: str | Path, devices: list[str] | None = None,
-                           files: list[str | Path] | None = None) -> pd.DataFrame:
+def touchstone_points(index: str | Path, devices: list[str] | None = None,
+                      files: list[str | Path] | None = None) -> pd.DataFrame:
     """One capacitance point per Touchstone file that ``index.csv`` lists (for the given
-    devices or files; default all): what ``kinset parse capacitance_vna`` stores."""
-    from kinset.fitting.capacitance import sweep_capacitance
+    devices or files; default all), from a series R–L–C element fitted to its network:
+    what ``kinset fit-touchstone`` stores."""
+    from kinset.fitting.touchstone import fit_touchstone
     from kinset.io.touchstone import read_vna
-    return sweep_capacitance(read_vna(index, devices=devices, files=files))
+    return fit_touchstone(read_vna(index, devices=devices, files=files))
 
 
 def _capacitance_points(reel: Reel, files: list[str | Path]) -> pd.DataFrame:
     """C–V readings and VNA points from raw files, parsed files, or the whole reel."""
-    from kinset.fitting.capacitance import sweep_capacitance
+    from kinset.fitting.touchstone import fit_touchstone
     from kinset.io.datasets import read_capacitance
     from kinset.io.parsed import load_parsed
     from kinset.io.touchstone import (INDEX_NAME, TOUCHSTONE_NAME, read_vna_index,
@@ -119,9 +120,9 @@ def _capacitance_points(reel: Reel, files: list[str | Path]) -> pd.DataFrame:
     if not files:
         frames += [read_capacitance(f) for f in reel.dataset_files("capacitance")]
         if index.is_file():
-            frames.append(capacitance_vna_points(index))
+            frames.append(touchstone_points(index))
         listed = read_vna_index(index) if index.is_file() else None
-        frames.append(sweep_capacitance(unlisted_measurements(unlisted_touchstone(folder, listed))))
+        frames.append(fit_touchstone(unlisted_measurements(unlisted_touchstone(folder, listed))))
         if not any(len(f) for f in frames):
             raise InputError("no capacitance files found (C–V tables, or Touchstone files "
                              "with index.csv)", folder)
@@ -129,7 +130,7 @@ def _capacitance_points(reel: Reel, files: list[str | Path]) -> pd.DataFrame:
         if f.endswith(".npz"):
             frames.append(load_parsed(f))
         elif Path(f).name == INDEX_NAME:
-            frames.append(capacitance_vna_points(f))
+            frames.append(touchstone_points(f))
         elif TOUCHSTONE_NAME.search(f):
             touchstone.append(f)
         else:
@@ -138,8 +139,8 @@ def _capacitance_points(reel: Reel, files: list[str | Path]) -> pd.DataFrame:
         listed = read_vna_index(index) if index.is_file() else None
         named = set() if listed is None else set(listed["path"])
         if named:
-            frames.append(capacitance_vna_points(index, files=touchstone))
-        frames.append(sweep_capacitance(unlisted_measurements(
+            frames.append(touchstone_points(index, files=touchstone))
+        frames.append(fit_touchstone(unlisted_measurements(
             [Path(f) for f in touchstone if os.path.normpath(f) not in named])))
     frames = [f for f in frames if len(f)] or frames[:1]
     return pd.concat(frames, ignore_index=True)

@@ -80,8 +80,9 @@ class Plan:
     def vna_digest(self, group: str) -> str:
         return self.vna[group]["digest"]
 
-    def parsed_vna(self) -> list[str]:
-        return [str(self.out / "parsed" / "capacitance_vna" / f"{g}.npz") for g in sorted(self.vna)]
+    def touchstone_points(self) -> list[str]:
+        """The capacitance points of the Touchstone files, one file per job of vna_groups."""
+        return [str(self.out / "parsed" / "touchstone" / f"{g}.npz") for g in sorted(self.vna)]
 
     def bucket_files(self, dataset: str, bucket: str) -> list[str]:
         return self.buckets[dataset][bucket]

@@ -1,31 +1,21 @@
-"""Junction capacitance: from VNA sweeps to capacitance points, and the C–V fit.
+"""Junction capacitance: the C–V fit of every device to its capacitance points.
 
-Two fits, both vectorised across the reel:
+:func:`fit_capacitance` fits the SPICE depletion law Cj = CJO/(1 + VR/VJ)^M (optionally
+plus a constant package capacitance CP) to every device's reverse-bias points, C–V table
+points and VNA points (one per Touchstone file, from the series R–L–C element fit of
+:mod:`kinset.fitting.touchstone`) together, weighted by the instrument's capacitance
+accuracy. Start: for a grid of VJ the law is linear in (ln CJO, M) after taking
+logarithms, so each device's best grid point comes from stacked 2×2 weighted least
+squares. Then Levenberg–Marquardt iterations (K. Levenberg, Q. Appl. Math. 2, 164-168,
+1944; D. W. Marquardt, J. SIAM 11(2), 431-441, 1963, doi:10.1137/0111030) on the
+capacitance itself for all devices together, with VJ, M and CP kept inside their bounds
+by projection.
 
-1. :func:`sweep_capacitance` turns each Touchstone sweep into one capacitance
-   point. The device admittance follows from S and the fixture
-   (:func:`kinset.physics.capacitance.fixture_admittance`); the empty fixture measured
-   at the same bias is subtracted as an admittance; a series R–L–C is fitted to the
-   impedance over the band where the measurement is well conditioned. The model is
-   linear in (R, L, 1/C), so every sweep of a job is solved at once as a stack of 3×3
-   weighted normal equations.
-
-2. :func:`fit_capacitance` fits the SPICE depletion law
-   Cj = CJO/(1 + VR/VJ)^M (optionally plus a constant package capacitance CP) to every
-   device's reverse-bias points, C–V table points and VNA points together, weighted by
-   the instrument's capacitance accuracy. Start: for a grid of VJ the law is linear in
-   (ln CJO, M) after taking logarithms, so each device's best grid point comes from
-   stacked 2×2 weighted least squares. Then Levenberg–Marquardt iterations (K.
-   Levenberg, Q. Appl. Math. 2, 164-168, 1944; D. W. Marquardt, J. SIAM 11(2), 431-441,
-   1963, doi:10.1137/0111030) on the capacitance itself for all devices together, with
-   VJ, M and CP kept inside their bounds by projection.
-
-Conditioning of a VNA measurement (how strongly noise on S is amplified into the
-impedance) is :math:`\\sigma_Z/|Z| = |Z|\\,|dY/dS|` per unit noise on S. For a
-reflection measurement of a small capacitance at low frequency, |Z| ≫ Z0 and S11 ≈ 1:
-the ratio grows like |Z|/(2 Z0), and the series resistance is lost in the noise. The
-band kept is where this ratio is within :data:`BAND_FACTOR` of its best value in the
-sweep; inside it the points are weighted by 1/σ_Z.
+Stages: :func:`_prepare` (points sorted by device once, with the masks of what enters
+the fit), :func:`_solve` (arrays in, parameters out), :func:`_summarise` and
+:func:`_diagnose` (per-device figures through :class:`kinset.fitting.batch.Groups`, and
+the codes of :data:`kinset.fitting.capacitance_notes.CAPACITANCE` as findings), :func:`_tables` (status, note and
+``reason_code`` composed once by :func:`kinset.outcomes.compose`).
 """
 
 from __future__ import annotations
@@ -36,230 +26,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import grouped_normal_equations, inverse_diagonal, solve_stack
+from kinset.fitting.batch import Groups, grouped_normal_equations, inverse_diagonal, solve_stack
+from kinset.fitting.capacitance_notes import CAPACITANCE
+from kinset.fitting.touchstone import point_status
 from kinset.format import si
-from kinset.physics.capacitance import fixture_admittance
+from kinset.outcomes import Finding, compose
 from kinset.physics.constants import ZERO_CELSIUS
-
-# --------------------------------------------------------------------------- VNA sweeps
-# Keep frequencies whose noise amplification σ_Z/|Z| is within this factor of the
-# sweep's best (rule of thumb: a point 10 times noisier carries 1 % of the weight).
-BAND_FACTOR = 10.0
-MIN_BAND_POINTS = 5          # the band holds at least this many best-conditioned points
-MIN_FREQUENCIES = 3          # below this no R, L and C can be fitted with a residual
-# Residual of the R–L–C fit, expressed as the rms noise on S it implies, above which the
-# sweep does not look like a series R–L–C (a calibrated analyser is near 1e-3 or better).
-POOR_S_NOISE = 1e-2
-UNCERTAIN_C_REL = 1e-2       # relative standard error of C above which a point warns
-
-
-def _interp_complex(x, xp, fp):
-    return np.interp(x, xp, fp.real) + 1j * np.interp(x, xp, fp.imag)
-
-
-def _sweep_arrays(m):
-    """Device admittance, its noise gain and the frequencies of one measurement.
-
-    Returns (frequency, Y_device, |dY/dS| combined, open admittance or None, problem).
-    """
-    sw = m.sweep
-    z0 = sw.reference_impedance
-    if np.any(np.abs(z0.imag) > 1e-9 * np.abs(z0)) or np.any(z0.real <= 0):
-        return None, None, None, None, (f"{m.file}: complex or non-positive reference "
-                                        f"impedance; only real ones are supported")
-    f = sw.frequency
-    y, dy = fixture_admittance(sw.s, z0.real, m.fixture)
-    gain = np.abs(dy)
-    y_open = None
-    if m.open_sweep is not None:
-        op = m.open_sweep
-        yo, dyo = fixture_admittance(op.s, op.reference_impedance.real, m.fixture)
-        if len(op.frequency) != len(f) or not np.allclose(op.frequency, f, rtol=1e-9):
-            inside = (f >= op.frequency[0]) & (f <= op.frequency[-1])
-            f, y, gain = f[inside], y[inside], gain[inside]
-            yo = _interp_complex(f, op.frequency, yo)
-            dyo = np.interp(f, op.frequency, np.abs(dyo))
-        y = y - yo
-        gain = np.hypot(gain, np.abs(dyo))
-        y_open = yo
-    return f, y, gain, y_open, ""
-
-
-def sweep_capacitance(measurements: list) -> pd.DataFrame:
-    """One capacitance point per VNA measurement: series R–L–C fits, all at once.
-
-    Parameters
-    ----------
-    measurements : list of :class:`kinset.io.touchstone.VnaMeasurement`
-        Rows of the index with their sweeps (and empty-fixture sweeps) read.
-
-    Returns
-    -------
-    DataFrame
-        One row per measurement: ``device, kind ('vna'), reverse_voltage [V],
-        capacitance [F], capacitance_se [F], resistance [Ohm], resistance_se,
-        inductance [H], band_min, band_max [Hz], band_points, fit_rms_ohm, s_noise,
-        fixture, temperature [K], frequency (NaN), open_file, open_capacitance [F],
-        status (ok | warning | rejected), note, source (the Touchstone file), line
-        (in index.csv), index``.
-    """
-    n = len(measurements)
-    prob = [m.problem for m in measurements]
-    arrays = [None] * n
-    for i, m in enumerate(measurements):
-        if not prob[i] and m.sweep is not None:
-            f, y, gain, y_open, p = _sweep_arrays(m)
-            if p:
-                prob[i] = p
-            elif len(f) < MIN_FREQUENCIES:
-                prob[i] = (f"{m.file}: {len(f)} frequency point(s) (with its empty fixture); "
-                           f"at least {MIN_FREQUENCIES} are needed for R, L and C")
-            else:
-                arrays[i] = (f, y, gain, y_open)
-    fit = _fit_rlc([a for a in arrays if a is not None])
-    cols = {k: np.full(n, np.nan) for k in (
-        "capacitance", "capacitance_se", "resistance", "resistance_se", "inductance",
-        "band_min", "band_max", "band_points", "fit_rms_ohm", "s_noise", "open_capacitance")}
-    good = [i for i in range(n) if arrays[i] is not None]
-    for k, v in fit.items():
-        cols[k][good] = v
-    status, note = [], []
-    for i, m in enumerate(measurements):
-        if prob[i]:
-            status.append("rejected")
-            note.append(prob[i])
-            continue
-        st, words = _point_words(m, {k: v[i] for k, v in cols.items()})
-        status.append(st)
-        note.append(words)
-        if st == "rejected":
-            cols["capacitance"][i] = np.nan
-    return pd.DataFrame({
-        "device": [m.device for m in measurements],
-        "kind": "vna",
-        "reverse_voltage": [m.reverse_voltage for m in measurements],
-        **cols,
-        "fixture": [m.fixture for m in measurements],
-        "temperature": [m.temperature for m in measurements],
-        "frequency": np.nan,
-        "open_file": [m.open_file for m in measurements],
-        "status": status,
-        "note": note,
-        "source": [m.path for m in measurements],
-        "line": [m.line for m in measurements],
-        "index": [m.index for m in measurements],
-    }, index=pd.RangeIndex(n))
-
-
-def _point_words(m, r) -> tuple[str, str]:
-    """Status and note of one fitted VNA point."""
-    c = r["capacitance"]
-    if not np.isfinite(c) or c <= 0:
-        what = "after the empty fixture is removed, " if m.open_file else ""
-        return "rejected", (f"{m.file}: {what}the impedance shows no capacitive reactance in "
-                            f"the band {si(r['band_min'], 'Hz')}–{si(r['band_max'], 'Hz')} "
-                            f"(is the diode forward biased, shorted or missing?)")
-    st = "ok"
-    words = [f"{m.file}: C = {si(c, 'F', 4)} from a series R–L–C fit over "
-             f"{si(r['band_min'], 'Hz')}–{si(r['band_max'], 'Hz')} "
-             f"({r['band_points']:.0f} frequencies)"]
-    if m.open_file:
-        words.append(f"empty fixture {m.open_file} removed ({si(r['open_capacitance'], 'F')})")
-    elif not m.fixture_has_open:
-        st = "warning"
-        words.append(f"no empty-fixture measurement for the {m.fixture} fixture: its "
-                     f"parasitic capacitance is not removed")
-    if r["s_noise"] > POOR_S_NOISE:
-        st = "warning"
-        words.append(f"the impedance does not follow a series R–L–C (the residual implies "
-                     f"noise of {r['s_noise']:.2g} on S)")
-    if r["capacitance_se"] > UNCERTAIN_C_REL * c:
-        st = "warning"
-        words.append(f"poorly conditioned: C uncertain by {100 * r['capacitance_se'] / c:.2g} %")
-    if not (r["resistance"] > 2 * r["resistance_se"]):
-        words.append("series resistance not resolved")
-    return st, "; ".join(words)
-
-
-def _fit_rlc(arrays: list) -> dict[str, np.ndarray]:
-    """Weighted series R–L–C fits of many impedance sweeps at once.
-
-    ``arrays``: per sweep (frequency [Hz], device admittance [S], noise gain |dY/dS| [S],
-    empty-fixture admittance or None).
-    """
-    k = len(arrays)
-    if not k:
-        return {}
-    sizes = np.array([len(a[0]) for a in arrays])
-    g = np.repeat(np.arange(k), sizes)
-    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-    w = 2 * np.pi * np.concatenate([a[0] for a in arrays])
-    y = np.concatenate([a[1] for a in arrays])
-    gain = np.concatenate([a[2] for a in arrays])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        z = 1.0 / y
-        sz = np.abs(z) ** 2 * gain             # σ_Z per unit noise on S [Ohm]
-        cond = sz / np.abs(z)                  # relative noise gain
-    cond = np.where(np.isfinite(cond) & (cond > 0), cond, np.inf)
-    # The band: within BAND_FACTOR of the best conditioning, and at least the
-    # MIN_BAND_POINTS best points.
-    best = np.minimum.reduceat(cond, starts)
-    order = np.lexsort((cond, g))
-    rank = np.empty(len(g), dtype=int)
-    rank[order] = np.arange(len(g)) - starts[g[order]]
-    band = np.isfinite(cond) & ((cond <= BAND_FACTOR * best[g]) | (rank < MIN_BAND_POINTS))
-    gb, wb, zb, sb = g[band], w[band], z[band], sz[band]
-    nb = np.bincount(gb, minlength=k)
-    w_ref = np.exp(np.bincount(gb, np.log(wb), minlength=k) / np.maximum(nb, 1))
-    x = wb / w_ref[gb]
-    # Rows: Re Z = R and Im Z = ωL − 1/(ωC), in units of Ohm: unknowns
-    # (R, L·ω_ref, ω_ref^-1/C), each row divided by its σ_Z.
-    m = len(gb)
-    idx = np.concatenate([gb, gb])
-    jac = np.zeros((2 * m, 3))
-    jac[:m, 0] = 1.0 / sb
-    jac[m:, 1] = x / sb
-    jac[m:, 2] = -1.0 / (x * sb)
-    target = np.concatenate([zb.real, zb.imag]) / np.concatenate([sb, sb])
-    jtj, jtr = grouped_normal_equations(idx, jac, target, k)
-    p = solve_stack(jtj, jtr)
-    used = np.ones((k, 3), dtype=bool)
-    neg_l = ~(p[:, 1] >= 0)                   # negative or unresolved inductance: L = 0
-    if neg_l.any():
-        keep = [0, 2]
-        sub = solve_stack(jtj[neg_l][:, keep][:, :, keep], jtr[neg_l][:, keep])
-        p[neg_l] = np.column_stack([sub[:, 0], np.zeros(neg_l.sum()), sub[:, 1]])
-        used[neg_l, 1] = False
-    resid = np.einsum("ij,ij->i", jac, p[idx]) - target
-    ssr = np.bincount(idx, resid ** 2, minlength=k)
-    dof = 2 * nb - used.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        noise = np.sqrt(ssr / np.maximum(dof, 1))
-        jtj_u = jtj * (used[:, :, None] & used[:, None, :]) + np.einsum(
-            "ki,ij->kij", ~used, np.eye(3))
-        cov = inverse_diagonal(jtj_u, rcond=1e-15) * noise[:, None] ** 2
-        se = np.where(used, np.sqrt(cov), 0.0)
-        d = p[:, 2] * w_ref                     # 1/C [1/F]
-        c = 1.0 / d
-        zfit = p[gb, 0] + 1j * (p[gb, 1] * x - p[gb, 2] / x)
-        rms = np.sqrt(np.bincount(gb, np.abs(zb - zfit) ** 2, minlength=k) / np.maximum(nb, 1))
-    # Open's capacitance at the band's centre, for the note: Im(Y)/ω.
-    open_c = np.full(k, np.nan)
-    for i, a in enumerate(arrays):
-        if a[3] is not None:
-            sel = band[starts[i]:starts[i] + sizes[i]]
-            if sel.any():                       # no point in the band: no note value
-                open_c[i] = np.median(a[3].imag[sel] / (2 * np.pi * a[0][sel]))
-    return {
-        "capacitance": c, "capacitance_se": np.abs(se[:, 2] * w_ref) * c ** 2,
-        "resistance": p[:, 0], "resistance_se": se[:, 0],
-        "inductance": p[:, 1] / w_ref,
-        "band_min": np.fmin.reduceat(np.where(band, w, np.nan), starts) / (2 * np.pi),
-        "band_max": np.fmax.reduceat(np.where(band, w, np.nan), starts) / (2 * np.pi),
-        "band_points": nb.astype(float), "fit_rms_ohm": rms, "s_noise": noise,
-        "open_capacitance": open_c,
-    }
-
 
 # --------------------------------------------------------------------------- C–V fit
 VJ_RANGE_V = (0.1, 3.0)       # [V] default bounds of VJ (the reel.yaml key overrides)
@@ -372,18 +144,56 @@ def _levenberg_marquardt(idx, k, vr, c, sigma, p0, free, lower, upper, max_iter=
     return p, ssr, jac
 
 
-def _segments(codes, n):
-    counts = np.bincount(codes, minlength=n)
-    return counts, np.concatenate([[0], np.cumsum(counts)[:-1]])
+
+def _fit_law(idx, k, vr, c, sigma, s: CapacitanceSettings, lo, hi):
+    """Start on the VJ grid, then LM on (ln CJO, ln VJ, M), then with CP when it is fitted.
+
+    Returns parameters (k, 4), weighted SSR (k,) and the final Jacobian rows.
+    """
+    p0 = _start(idx, k, vr, c, sigma, s.vj_range)
+    free = np.array([True, True, True, False])
+    par, ssr, jac = _levenberg_marquardt(idx, k, vr, c, sigma, p0, free, lo, hi)
+    if s.package_capacitance:
+        hi4 = np.broadcast_to(hi, (k, 4)).copy()
+        hi4[:, 3] = Groups(idx, k).min(c)       # CP below the smallest capacitance
+        lo4 = np.broadcast_to(lo, (k, 4))
+        free = np.ones(4, dtype=bool)
+        par, ssr, jac = _levenberg_marquardt(idx, k, vr, c, sigma, par, free, lo4, hi4)
+    return par, ssr, jac
 
 
-def _distinct(codes, x, mask, n):
-    sel = np.flatnonzero(mask)
-    order = np.lexsort((x[sel], codes[sel]))
-    d, v = codes[sel][order], x[sel][order]
-    new = np.ones(len(d), dtype=bool)
-    new[1:] = (d[1:] != d[:-1]) | (v[1:] != v[:-1])
-    return np.bincount(d[new], minlength=n)
+@dataclass
+class _Points:
+    """The points of named devices sorted by device once, and which of them the fit uses."""
+
+    frame: pd.DataFrame          # points of named devices, sorted by device
+    rest: pd.DataFrame           # points of no device (Touchstone files no index row names)
+    names: np.ndarray            # device ids, sorted
+    groups: Groups               # per-device reductions over ``frame``
+    vr: np.ndarray               # [V] reverse voltage
+    cap: np.ndarray              # [F]
+    temp: np.ndarray             # [K], ambient where not given
+    sigma: np.ndarray            # [F] capacitance accuracy
+    vna: np.ndarray              # a VNA point (else a C–V table point)
+    rejected: np.ndarray         # a VNA point whose codes reject it
+    warned: np.ndarray           # a VNA point whose codes warn
+    nonpos: np.ndarray           # zero or negative capacitance
+    forward: np.ndarray          # forward bias
+    used: np.ndarray             # enters the fit (if the device has enough biases)
+
+
+@dataclass
+class _Fit:
+    """What the solve gives per device (parameters in the fit's units) and per point."""
+
+    n_par: int
+    fit_dev: np.ndarray          # the device has enough distinct biases for a fit
+    params: np.ndarray           # (n, 4) ln CJO, ln VJ, M, CP (NaN: no fit)
+    se: np.ndarray               # (n, 4) their standard errors
+    wrms: np.ndarray             # weighted rms residual, in accuracies
+    model: np.ndarray            # [F] the fitted law at each point (NaN where not fitted)
+    lo: np.ndarray               # bounds of the parameters
+    hi: np.ndarray
 
 
 def fit_capacitance(points: pd.DataFrame, settings: CapacitanceSettings
@@ -395,26 +205,35 @@ def fit_capacitance(points: pd.DataFrame, settings: CapacitanceSettings
     points : DataFrame
         ``device, kind ('cv' | 'vna'), reverse_voltage [V], capacitance [F],
         frequency [Hz], temperature [K] (NaN: ambient), source, line``, and for VNA
-        points ``status`` and ``note`` (and the other columns of
-        :func:`sweep_capacitance`). Rows with an empty device (Touchstone files the index
-        does not name) are reported in the points table only.
+        points ``status``, ``note`` and ``reason_code`` (and the other columns of
+        :func:`kinset.fitting.touchstone.fit_touchstone`; which VNA points are rejected or
+        warn is read from their codes). Rows with an empty device (Touchstone files the
+        index does not name) are reported in the points table only.
     settings : CapacitanceSettings
 
     Returns
     -------
     devices : DataFrame
-        One row per device, sorted: ``device, status, note, cj0_F, vj_V, m, fit_rms_F``,
-        standard errors ``cj0_F_se, vj_V_se, m_se``, ``cp_F, cp_F_se`` (when the package
-        capacitance is fitted), ``points, cv_points, vna_points, vr_min_V, vr_max_V,
-        sources, reference_temperature_C``.
+        One row per device, sorted: ``device, status, note, reason_code, cj0_F, vj_V, m,
+        fit_rms_F``, standard errors ``cj0_F_se, vj_V_se, m_se``, ``cp_F, cp_F_se`` (when
+        the package capacitance is fitted), ``points, cv_points, vna_points, vr_min_V,
+        vr_max_V, sources, reference_temperature_C``.
     points : DataFrame
-        Every capacitance point in SI with ``used`` (0/1) and the fit residual, for the
-        report and for serving devices that have too few biases for a fit.
+        Every capacitance point in SI with ``used`` (0/1), the fit residual and, for VNA
+        points, their ``reason_code``, for the report and for serving devices that have
+        too few biases for a fit.
     """
-    s = settings
+    pt = _prepare(points, settings)
+    fit = _solve(pt, settings)
+    stats = _summarise(pt, fit, settings)
+    return _tables(pt, fit, stats, _diagnose(pt, fit, stats, settings), settings)
+
+
+def _prepare(points: pd.DataFrame, s: CapacitanceSettings) -> _Points:
+    """Default columns, points sorted by device, the masks of what the fit may use."""
     pts = points.reset_index(drop=True)
-    for col, default in (("kind", "cv"), ("status", ""), ("note", ""), ("frequency", np.nan),
-                         ("temperature", np.nan)):
+    for col, default in (("kind", "cv"), ("status", ""), ("note", ""), ("reason_code", ""),
+                         ("frequency", np.nan), ("temperature", np.nan)):
         if col not in pts:
             pts[col] = default
         elif isinstance(default, str):
@@ -422,192 +241,176 @@ def fit_capacitance(points: pd.DataFrame, settings: CapacitanceSettings
     dev_all = pts["device"].astype(str).to_numpy()
     known = dev_all != ""
     codes, names = pd.factorize(dev_all[known], sort=True)
-    n_dev = len(names)
-    rows = np.flatnonzero(known)
-    order = rows[np.argsort(codes, kind="stable")]
-    codes = np.sort(codes, kind="stable")
+    order = np.flatnonzero(known)[np.argsort(codes, kind="stable")]
     p = pts.iloc[order].reset_index(drop=True)
     vr = p["reverse_voltage"].to_numpy(dtype=float)
     cap = p["capacitance"].to_numpy(dtype=float)
-    kind = p["kind"].astype(str).to_numpy()
-    pstat = p["status"].astype(str).to_numpy()
-    vna = kind == "vna"
-    rejected = vna & (pstat == "rejected")
+    vna = p["kind"].astype(str).to_numpy() == "vna"
+    worst = point_status(p["reason_code"])
+    rejected = vna & (worst == "rejected")
     finite = np.isfinite(vr) & np.isfinite(cap) & ~rejected
-    nonpos = finite & (cap <= 0)
-    forward = finite & (cap > 0) & (vr < 0)
-    used = finite & (cap > 0) & (vr >= 0)
     temp = p["temperature"].to_numpy(dtype=float)
-    temp = np.where(np.isfinite(temp), temp, s.ambient_temperature)
     sigma = s.accuracy_gain * np.abs(cap) + s.accuracy_offset
-    sigma = np.where(sigma > 0, sigma, np.abs(cap) * 1e-3 + 1e-18)
+    return _Points(
+        frame=p, rest=pts.iloc[np.flatnonzero(~known)], names=np.asarray(names.astype(str)),
+        groups=Groups(np.sort(codes, kind="stable"), len(names)), vr=vr, cap=cap,
+        temp=np.where(np.isfinite(temp), temp, s.ambient_temperature),
+        sigma=np.where(sigma > 0, sigma, np.abs(cap) * 1e-3 + 1e-18),
+        vna=vna, rejected=rejected, warned=vna & (worst == "warning"),
+        nonpos=finite & (cap <= 0), forward=finite & (cap > 0) & (vr < 0),
+        used=finite & (cap > 0) & (vr >= 0))
 
+
+def _solve(pt: _Points, s: CapacitanceSettings) -> _Fit:
+    """The depletion law of every device with enough distinct reverse biases."""
+    g = pt.groups
     n_par = 4 if s.package_capacitance else 3
-    distinct = _distinct(codes, np.round(vr / SAME_BIAS_V), used, n_dev)
-    fit_dev = distinct >= n_par
-    params = np.full((n_dev, 4), np.nan)
-    se = np.full((n_dev, 4), np.nan)
-    wrms = np.full(n_dev, np.nan)
-    model = np.full(len(p), np.nan)
-    lo = np.array([-np.inf, np.log(s.vj_range[0]), M_BOUNDS[0], 0.0])
-    hi = np.array([np.inf, np.log(s.vj_range[1]), M_BOUNDS[1], 0.0])
-    fit_rows = used & fit_dev[codes]
-    if fit_rows.any():
-        sel = np.flatnonzero(fit_rows)
-        ids = np.flatnonzero(fit_dev)
-        remap = np.full(n_dev, -1)
-        remap[ids] = np.arange(len(ids))
-        idx, k = remap[codes[sel]], len(ids)
-        v, c, sg = vr[sel], cap[sel], sigma[sel]
-        p0 = _start(idx, k, v, c, sg, s.vj_range)
-        free = np.array([True, True, True, False])
-        par, ssr, jac = _levenberg_marquardt(idx, k, v, c, sg, p0, free, lo, hi)
-        if s.package_capacitance:
-            cmin = np.fmin.reduceat(c, _segments(idx, k)[1])
-            hi4 = np.broadcast_to(hi, (k, 4)).copy()
-            hi4[:, 3] = cmin
-            lo4 = np.broadcast_to(lo, (k, 4))
-            free = np.ones(4, dtype=bool)
-            par, ssr, jac = _levenberg_marquardt(idx, k, v, c, sg, par, free, lo4, hi4)
-        jtj, _ = grouped_normal_equations(idx, jac, np.zeros(len(idx)), k)
-        m_k = np.bincount(idx, minlength=k)
-        dof = m_k - n_par
-        with np.errstate(invalid="ignore", divide="ignore"):
-            s2 = np.where(dof > 0, ssr / np.maximum(dof, 1), np.nan)
-            cov = inverse_diagonal(jtj, rcond=1e-15) * s2[:, None]
-        ok = np.isfinite(par).all(axis=1) & np.isfinite(ssr)
-        params[ids] = np.where(ok[:, None], par, np.nan)
-        se[ids, :n_par] = np.sqrt(cov)
-        wrms[ids] = np.sqrt(ssr / m_k)
-        model[sel] = _law(par[idx], v)[0]
+    fit_dev = g.distinct(np.round(pt.vr / SAME_BIAS_V), pt.used) >= n_par
+    out = _Fit(n_par=n_par, fit_dev=fit_dev, params=np.full((g.n, 4), np.nan),
+               se=np.full((g.n, 4), np.nan), wrms=np.full(g.n, np.nan),
+               model=np.full(len(pt.vr), np.nan),
+               lo=np.array([-np.inf, np.log(s.vj_range[0]), M_BOUNDS[0], 0.0]),
+               hi=np.array([np.inf, np.log(s.vj_range[1]), M_BOUNDS[1], 0.0]))
+    fit_rows = pt.used & fit_dev[g.codes]
+    if not fit_rows.any():
+        return out
+    sel = np.flatnonzero(fit_rows)
+    ids = np.flatnonzero(fit_dev)
+    remap = np.full(g.n, -1)
+    remap[ids] = np.arange(len(ids))
+    idx, k = remap[g.codes[sel]], len(ids)
+    v, c = pt.vr[sel], pt.cap[sel]
+    par, ssr, jac = _fit_law(idx, k, v, c, pt.sigma[sel], s, out.lo, out.hi)
+    jtj, _ = grouped_normal_equations(idx, jac, np.zeros(len(idx)), k)
+    m_k = Groups(idx, k).counts
+    dof = m_k - n_par
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s2 = np.where(dof > 0, ssr / np.maximum(dof, 1), np.nan)
+        cov = inverse_diagonal(jtj, rcond=1e-15) * s2[:, None]
+    ok = np.isfinite(par).all(axis=1) & np.isfinite(ssr)
+    out.params[ids] = np.where(ok[:, None], par, np.nan)
+    out.se[ids, :n_par] = np.sqrt(cov)
+    out.wrms[ids] = np.sqrt(ssr / m_k)
+    out.model[sel] = _law(par[idx], v)[0]
+    return out
 
-    resid = cap - model
-    counts, starts = _segments(codes, n_dev)
 
-    def per_dev(x, mask, fn=np.add):
-        y = np.where(mask, x, 0.0 if fn is np.add else np.nan)
-        return fn.reduceat(y, starts) if len(y) else np.zeros(n_dev)
+def _summarise(pt: _Points, fit: _Fit, s: CapacitanceSettings) -> dict[str, np.ndarray]:
+    """Per-device figures of the table and the diagnosis (one Groups reduction each)."""
+    g, vna, used = pt.groups, pt.vna, pt.used
+    fit_rows = used & fit.fit_dev[g.codes]
+    resid = pt.cap - fit.model
+    n_used, n_cv, n_vna = g.count(used), g.count(used & ~vna), g.count(used & vna)
 
-    n_used = per_dev(np.ones(len(p)), used).astype(int)
-    n_cv = per_dev(np.ones(len(p)), used & ~vna).astype(int)
-    n_vna = per_dev(np.ones(len(p)), used & vna).astype(int)
-    ssr_f = per_dev(resid ** 2, fit_rows)
-    rms_f = np.where(fit_dev, np.sqrt(ssr_f / np.maximum(n_used, 1)), np.nan)
-    vr_min = per_dev(vr, used, np.fmin)
-    vr_max = per_dev(vr, used, np.fmax)
-    dt = per_dev(np.abs(temp - s.reference_temperature), used, np.fmax)
-    z = resid / sigma
-    mean_cv = per_dev(z, fit_rows & ~vna) / np.maximum(n_cv, 1)
-    mean_vna = per_dev(z, fit_rows & vna) / np.maximum(n_vna, 1)
-    rel_cv = per_dev(resid / cap, fit_rows & ~vna) / np.maximum(n_cv, 1)
-    rel_vna = per_dev(resid / cap, fit_rows & vna) / np.maximum(n_vna, 1)
-    n_nonpos, n_forward = per_dev(np.ones(len(p)), nonpos), per_dev(np.ones(len(p)), forward)
-    src = p["source"].astype(str).to_numpy()
-    notes_of = p["note"].astype(str).to_numpy()
+    def mean(x, mask, count):
+        return g.sum(np.where(mask, x, 0.0)) / np.maximum(count, 1)
 
-    status, notes = [], []
-    for d in range(n_dev):
-        a, b = starts[d], starts[d] + counts[d]
-        note: list[str] = []
-        st = "ok"
-        bad_vna = [notes_of[i] for i in range(a, b) if rejected[i]]
-        warn_vna = [notes_of[i] for i in range(a, b) if vna[i] and pstat[i] == "warning"]
-        if n_nonpos[d]:
-            note.append(f"{n_nonpos[d]:.0f} point(s) with zero or negative capacitance ignored")
-        if n_forward[d]:
-            note.append(f"{n_forward[d]:.0f} forward-bias point(s) left out (the depletion law "
-                        f"is fitted on reverse bias)")
-        if n_used[d] == 0:
-            st = "rejected"
-            note.insert(0, "no usable capacitance point")
-        elif not fit_dev[d]:
-            st = "warning"
-            biases = sorted(set(np.round(vr[a:b][used[a:b]], 6)))
-            note.insert(0, f"only {len(biases)} reverse bias(es) "
-                        f"({', '.join(f'{x:g} V' for x in biases)}): too few to fit CJO, VJ, M"
-                        f"{' and CP' if n_par == 4 else ''}; the measured values serve only "
-                        f"at their own bias")
-        elif not np.isfinite(params[d]).all():
-            st = "rejected"
-            note.insert(0, "the fit did not converge: the points do not follow a depletion law")
-        else:
-            if n_cv[d] and n_vna[d]:
-                agree = rel_vna[d] - rel_cv[d]
-                note.insert(0, f"fitted to {n_cv[d]} C–V table and {n_vna[d]} VNA points "
-                            f"together (one fit, each point weighted by the capacitance "
-                            f"accuracy); VNA points lie {100 * agree:+.2g} % from the C–V "
-                            f"points on average")
-                if abs(mean_vna[d] - mean_cv[d]) > SOURCES_DISAGREE:
-                    st = "warning"
-                    note.append("C–V table and VNA points disagree by more than the "
-                                "capacitance accuracy (check the open correction of both)")
-            else:
-                note.insert(0, f"fitted to {n_used[d]} {'VNA' if n_vna[d] else 'C–V table'} "
-                            f"points, {vr_min[d]:g}–{vr_max[d]:g} V")
-            vj = np.exp(params[d, 1])
-            if params[d, 1] <= lo[1] + 1e-9 or params[d, 1] >= hi[1] - 1e-9:
-                st = "warning"
-                note.append(f"VJ at the bound {vj:.3g} V of its range "
-                            f"{s.vj_range[0]:g}–{s.vj_range[1]:g} V: VJ and M are not "
-                            f"separately resolved by these biases")
-            if params[d, 2] <= M_BOUNDS[0] + 1e-9 or params[d, 2] > USUAL_M_MAX:
-                st = "warning"
-                note.append(f"grading coefficient M = {params[d, 2]:.3g} is outside the "
-                            f"usual {M_BOUNDS[0]:g}–{USUAL_M_MAX:g}")
-            if wrms[d] > POOR_FIT:
-                cv_files = sorted({Path(src[i]).name for i in range(a, b) if not vna[i]})
-                if len(cv_files) > 1:
-                    # Tables that do not agree with each other: one id on two parts?
-                    st = "rejected"
-                    note.insert(0, f"C–V points in {len(cv_files)} files "
-                                f"({', '.join(cv_files)}) disagree: the fit to all of them is "
-                                f"off by {si(rms_f[d], 'F')} rms, beyond the capacitance "
-                                f"accuracy; one id on two parts? Check the files")
-                else:
-                    st = "warning"
-                    note.append(f"poor fit: rms residual {si(rms_f[d], 'F')} exceeds the "
-                                f"capacitance accuracy")
-        if bad_vna:
-            if st == "ok":
-                st = "warning"
-            note.append(f"Touchstone file{'s' if len(bad_vna) > 1 else ''} rejected: "
-                        + "; ".join(bad_vna))
-        if warn_vna:
-            if st == "ok":
-                st = "warning"
-            note.append("; ".join(warn_vna))
-        files = sorted({src[i] for i in range(a, b) if not vna[i]})
-        if len(files) > 1:
-            note.append(f"C–V points from {len(files)} files combined")
-        if n_used[d] and dt[d] > TEMPERATURE_WARN_K:
-            if st == "ok":
-                st = "warning"
-            note.append(f"measured up to {dt[d]:.3g} K away from the reference temperature; "
-                        f"capacitance is not corrected for temperature")
-        status.append(st)
-        notes.append("; ".join(note))
+    src = pt.frame["source"].astype(str).to_numpy()
+    cv_names = pd.factorize(np.asarray([Path(f).name for f in src], dtype=object))[0]
+    z, rel = resid / pt.sigma, resid / pt.cap
+    return {
+        "resid": resid, "n_used": n_used, "n_cv": n_cv, "n_vna": n_vna,
+        "rms_f": np.where(fit.fit_dev, np.sqrt(g.sum(np.where(fit_rows, resid ** 2, 0.0))
+                                               / np.maximum(n_used, 1)), np.nan),
+        "vr_min": g.min(np.where(used, pt.vr, np.nan)),
+        "vr_max": g.max(np.where(used, pt.vr, np.nan)),
+        "dt": g.max(np.where(used, np.abs(pt.temp - s.reference_temperature), np.nan)),
+        "mean_cv": mean(z, fit_rows & ~vna, n_cv), "mean_vna": mean(z, fit_rows & vna, n_vna),
+        "rel_cv": mean(rel, fit_rows & ~vna, n_cv), "rel_vna": mean(rel, fit_rows & vna, n_vna),
+        "n_nonpos": g.count(pt.nonpos), "n_forward": g.count(pt.forward),
+        "n_rejected": g.count(pt.rejected), "n_warned": g.count(pt.warned),
+        "cv_files": g.distinct(pd.factorize(src)[0], ~vna),
+        "cv_names": g.distinct(cv_names, ~vna),
+    }
 
+
+def _diagnose(pt: _Points, fit: _Fit, st: dict, s: CapacitanceSettings) -> list[Finding]:
+    """The codes of every device, in the order of its note (the deciding one first)."""
+    g, par, lo, hi = pt.groups, fit.params, fit.lo, fit.hi
+    some = st["n_used"] > 0
+    few = some & ~fit.fit_dev
+    fitted = some & fit.fit_dev & np.isfinite(par).all(axis=1)
+    both = fitted & (st["n_cv"] > 0) & (st["n_vna"] > 0)
+    poor = fitted & (fit.wrms > POOR_FIT)
+    with np.errstate(invalid="ignore"):
+        vj_bound = fitted & ((par[:, 1] <= lo[1] + 1e-9) | (par[:, 1] >= hi[1] - 1e-9))
+        m_odd = fitted & ((par[:, 2] <= M_BOUNDS[0] + 1e-9) | (par[:, 2] > USUAL_M_MAX))
+        disagree = both & (np.abs(st["mean_vna"] - st["mean_cv"]) > SOURCES_DISAGREE)
+    src = pt.frame["source"].astype(str).to_numpy()
+    notes = pt.frame["note"].astype(str).to_numpy()
+
+    def block(d):
+        return slice(g.starts[d], g.starts[d] + g.counts[d])
+
+    def biases(d):
+        return sorted(set(np.round(pt.vr[block(d)][pt.used[block(d)]], 6)))
+
+    def joined(mask):
+        return lambda d: "; ".join(notes[block(d)][mask[block(d)]])
+
+    rms = {"rms": lambda d: si(st["rms_f"][d], "F")}
+    return [
+        Finding("cv_files_disagree", poor & (st["cv_names"] > 1), {
+            "count": st["cv_names"], **rms, "files": lambda d: ", ".join(sorted(
+                {Path(f).name for f in src[block(d)][~pt.vna[block(d)]]}))}),
+        Finding("no_usable_point", ~some),
+        Finding("too_few_biases", few, {
+            "count": lambda d: len(biases(d)),
+            "biases": lambda d: ", ".join(f"{x:g} V" for x in biases(d)),
+            "parameters": "CJO, VJ, M" + (" and CP" if fit.n_par == 4 else "")}),
+        Finding("fit_not_converged", some & fit.fit_dev & ~fitted),
+        Finding("fitted_cv_vna", both, {
+            "cv_points": st["n_cv"], "vna_points": st["n_vna"],
+            "offset_pct": 100 * (st["rel_vna"] - st["rel_cv"])}),
+        Finding("fitted", fitted & ~both, {
+            "points": st["n_used"], "vr_min": st["vr_min"], "vr_max": st["vr_max"],
+            "source": np.where(st["n_vna"] > 0, "VNA", "C–V table")}),
+        Finding("nonpositive_points", st["n_nonpos"] > 0, {"count": st["n_nonpos"]}),
+        Finding("forward_bias_points", st["n_forward"] > 0, {"count": st["n_forward"]}),
+        Finding("sources_disagree", disagree),
+        Finding("vj_at_bound", vj_bound, {"vj": lambda d: np.exp(par[d, 1]),
+                                          "vj_min": s.vj_range[0], "vj_max": s.vj_range[1]}),
+        Finding("m_unusual", m_odd, {"m": par[:, 2], "m_min": M_BOUNDS[0],
+                                     "m_max": USUAL_M_MAX}),
+        Finding("poor_fit", poor & (st["cv_names"] <= 1), rms),
+        Finding("touchstone_rejected", st["n_rejected"] > 0, {
+            "file_word": np.where(st["n_rejected"] > 1, "files", "file"),
+            "notes": joined(pt.rejected)}),
+        Finding("touchstone_warning", st["n_warned"] > 0, {"notes": joined(pt.warned)}),
+        Finding("cv_files_combined", st["cv_files"] > 1, {"count": st["cv_files"]}),
+        Finding("temperature_uncorrected", some & (st["dt"] > TEMPERATURE_WARN_K),
+                {"dt": st["dt"]}),
+    ]
+
+
+def _tables(pt: _Points, fit: _Fit, st: dict, findings: list[Finding],
+            s: CapacitanceSettings) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The device table (notes composed from the findings) and the points table."""
+    status, note, code = compose(pt.groups.n, findings, CAPACITANCE)
+    par, se = fit.params, fit.se
     out = {
-        "device": names.astype(str), "status": status, "note": notes,
-        "cj0_F": np.exp(params[:, 0]), "vj_V": np.exp(params[:, 1]), "m": params[:, 2],
-        "fit_rms_F": rms_f,
-        "cj0_F_se": np.exp(params[:, 0]) * se[:, 0], "vj_V_se": np.exp(params[:, 1]) * se[:, 1],
+        "device": pt.names, "status": status.tolist(), "note": note.tolist(),
+        "reason_code": code.tolist(),
+        "cj0_F": np.exp(par[:, 0]), "vj_V": np.exp(par[:, 1]), "m": par[:, 2],
+        "fit_rms_F": st["rms_f"],
+        "cj0_F_se": np.exp(par[:, 0]) * se[:, 0], "vj_V_se": np.exp(par[:, 1]) * se[:, 1],
         "m_se": se[:, 2],
     }
     if s.package_capacitance:
-        out.update({"cp_F": params[:, 3], "cp_F_se": se[:, 3]})
+        out.update({"cp_F": par[:, 3], "cp_F_se": se[:, 3]})
+    n_cv, n_vna = st["n_cv"], st["n_vna"]
     out.update({
-        "points": n_used, "cv_points": n_cv, "vna_points": n_vna,
-        "vr_min_V": vr_min, "vr_max_V": vr_max,
+        "points": st["n_used"], "cv_points": n_cv, "vna_points": n_vna,
+        "vr_min_V": st["vr_min"], "vr_max_V": st["vr_max"],
         "sources": np.where(n_cv > 0, np.where(n_vna > 0, "cv+vna", "cv"),
                             np.where(n_vna > 0, "vna", "")),
         "reference_temperature_C": s.reference_temperature - ZERO_CELSIUS,
     })
-    devices = pd.DataFrame(out)
-    table = _points_table(pd.concat([p, pts.iloc[np.flatnonzero(~known)]], ignore_index=True),
-                          np.concatenate([used, np.zeros((~known).sum(), dtype=bool)]),
-                          np.concatenate([resid, np.full((~known).sum(), np.nan)]))
-    return devices, table
+    n_rest = len(pt.rest)
+    table = _points_table(pd.concat([pt.frame, pt.rest], ignore_index=True),
+                          np.concatenate([pt.used, np.zeros(n_rest, dtype=bool)]),
+                          np.concatenate([st["resid"], np.full(n_rest, np.nan)]))
+    return pd.DataFrame(out), table
 
 
 def _points_table(p: pd.DataFrame, used: np.ndarray, resid: np.ndarray) -> pd.DataFrame:
@@ -621,6 +424,7 @@ def _points_table(p: pd.DataFrame, used: np.ndarray, resid: np.ndarray) -> pd.Da
         "device": text("device"), "kind": text("kind"),
         "reverse_voltage_V": col("reverse_voltage"), "capacitance_F": col("capacitance"),
         "used": used.astype(int), "residual_F": resid, "status": status, "note": text("note"),
+        "reason_code": text("reason_code"),
         "frequency_Hz": col("frequency"),
         "temperature_C": col("temperature") - ZERO_CELSIUS,
         "fixture": text("fixture"),
