@@ -8,6 +8,7 @@ summed per device with ``numpy.bincount`` and solved as a stack of tiny systems.
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 
 
 def group_summer(index: np.ndarray, groups: int):
@@ -169,3 +170,26 @@ class Groups:
         new = np.ones(len(d), dtype=bool)
         new[1:] = (d[1:] != d[:-1]) | (v[1:] != v[:-1])
         return np.bincount(d[new], minlength=self.n)
+
+
+class ByDevice:
+    """A table's rows sorted by device once (stable: each device's rows keep their order).
+
+    ``names`` are the device ids, sorted; ``order`` the row order that groups them;
+    ``groups`` the per-device reductions over the sorted rows.
+    """
+
+    def __init__(self, points: pd.DataFrame):
+        codes, self.names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
+        self.order = np.argsort(codes, kind="stable")
+        self.groups = Groups(codes[self.order], len(self.names))
+        self._points = points
+
+    def column(self, name: str) -> np.ndarray:
+        """A numeric column in device order."""
+        return self._points[name].to_numpy(dtype=float)[self.order]
+
+    def temperature(self, ambient: float) -> np.ndarray:
+        """The rows' temperatures [K] in device order, ``ambient`` where a row has none."""
+        t = self.column("temperature")
+        return np.where(np.isfinite(t), t, ambient)

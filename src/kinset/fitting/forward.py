@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import (Groups, group_summer, grouped_normal_equations,
+from kinset.fitting.batch import (ByDevice, Groups, group_summer, grouped_normal_equations,
                                   inverse_diagonal, solve_stack)
 from kinset.format import si
 from kinset.outcomes import Catalogue, Finding, Note, compose
@@ -274,13 +274,10 @@ def _plateaus(seg: Groups, cur, volt, usable):
 
 def _prepare(points: pd.DataFrame, s: ForwardSettings) -> _Readings:
     """Sort the readings by device once and mark which of them a fit may use."""
-    codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
-    order = np.argsort(codes, kind="stable")
-    seg = Groups(codes[order], len(names))
-    cur = points["current"].to_numpy(dtype=float)[order]
-    volt = points["voltage"].to_numpy(dtype=float)[order]
-    temp = points["temperature"].to_numpy(dtype=float)[order]
-    temp = np.where(np.isfinite(temp), temp, s.ambient_temperature)
+    rows = ByDevice(points)
+    names, order, seg = rows.names, rows.order, rows.groups
+    cur, volt = rows.column("current"), rows.column("voltage")
+    temp = rows.temperature(s.ambient_temperature)
     finite = np.isfinite(cur) & np.isfinite(volt)
     usable = finite & (cur > 0)
     at_ilim, at_vlim = _plateaus(seg, cur, volt, usable)

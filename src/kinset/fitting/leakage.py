@@ -56,7 +56,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import Groups
+from kinset.fitting.batch import ByDevice, Groups
 from kinset.format import si
 from kinset.outcomes import Catalogue, Finding, Note, compose
 from kinset.physics.constants import ZERO_CELSIUS
@@ -289,14 +289,11 @@ def _usable_points(points: pd.DataFrame, s: LeakageSettings):
     Returns the device codes and names, the sorted (v, i, T, source index) arrays, the
     usable mask and per-device facts for the notes.
     """
-    codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
+    rows = ByDevice(points)
+    names, by_device, every = rows.names, rows.order, rows.groups
     src, src_names = pd.factorize(points["source"].astype(str).to_numpy())
-    by_device = np.argsort(codes, kind="stable")
-    every = Groups(codes[by_device], len(names))
-    v = points["reverse_voltage"].to_numpy(dtype=float)[by_device]
-    i = points["reverse_current"].to_numpy(dtype=float)[by_device]
-    t = points["temperature"].to_numpy(dtype=float)[by_device]
-    t = np.where(np.isfinite(t), t, s.ambient_temperature)
+    v, i = rows.column("reverse_voltage"), rows.column("reverse_current")
+    t = rows.temperature(s.ambient_temperature)
     # Sign convention: a device whose every non-zero voltage (or current) is negative
     # was recorded as signed values; its magnitudes are the reverse sweep.
     flip_v = (every.count(v > 0) == 0) & (every.count(v < 0) > 0)
