@@ -51,6 +51,16 @@ A waveform that never reverses, starts already reversed, has no forward level
 before the switch, or ends before the current has recovered to the end level is
 rejected with the reason.
 
+The work runs in stages: *prepare* sorts the samples by device, file and time,
+averages repeated time stamps and brings each capture to a uniform grid
+(:func:`_captures`); *solve* analyses stacks of equal-length waveforms, arrays in and
+arrays out, giving each capture's results and the code of the check that refused it
+(:func:`analyse_waveforms`); *diagnose* turns those arrays into findings, first per
+capture then per device (:func:`_capture_findings`, :func:`_device_findings`); the
+*table* averages each device's usable captures and writes status, note and
+``reason_code`` from the findings through :func:`kinset.outcomes.compose`
+(:func:`_device_table`). The notes and their codes are in :data:`CATALOGUE`.
+
 References
 ----------
 .. [1] R. H. Kingston, "Switching time in junction diodes and junction transistors",
@@ -68,8 +78,62 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from kinset.fitting.batch import Groups
 from kinset.format import si
+from kinset.outcomes import Catalogue, Finding, Note, compose
 from kinset.physics.recovery import transit_time
+
+# --------------------------------------------------------------------------- outcomes
+
+# Why a capture is unusable, in the order the analysis checks (the first one found is
+# the reason). ``{all_rejected}`` is empty, or " (all N captures rejected)" on a device
+# whose N captures were all refused (the note then quotes the first capture's reason).
+REJECTIONS = ("too_few_samples", "never_reverses", "starts_reversed", "no_forward_level",
+              "no_zero_crossing", "peak_below_end_level", "ends_before_recovery")
+
+CATALOGUE = Catalogue("recovery", [
+    Note("too_few_samples", "rejected",
+         "only {samples} samples: too few for a recovery waveform{all_rejected}"),
+    Note("never_reverses", "rejected",
+         "the current never reverses beyond the noise (lowest reading {lowest}, noise "
+         "{noise} rms): no recovery in this record{all_rejected}"),
+    Note("starts_reversed", "rejected",
+         "the record starts with the current already reversed ({start}): no forward level "
+         "before the switch (or the sign is inverted: positive current is forward)"
+         "{all_rejected}"),
+    Note("no_forward_level", "rejected",
+         "the record starts at the switch: too few samples of the forward level before the "
+         "current reverses{all_rejected}"),
+    Note("no_zero_crossing", "rejected", "no clear zero crossing of the current{all_rejected}"),
+    Note("peak_below_end_level", "rejected",
+         "the peak reverse current {peak} does not reach the end level {level}{all_rejected}"),
+    Note("ends_before_recovery", "rejected",
+         "the record ends {after_peak} after the peak with the reverse current still at "
+         "{tail}, above the end of recovery ({floor}): ends before recovery{all_rejected}"),
+    Note("decay_cut_short", "warning",
+         "the record ends before the current falls to 25 % of Irrm: the largest sample marks "
+         "the end of the storage phase (ta, tb, tt_s less certain)"),
+    Note("end_past_record", "warning",
+         "the extrapolated end lies {beyond} after the record ends; Qrr counted to the end "
+         "of the record"),
+    Note("coarse_sampling", "warning", "coarse sampling: trr spans only {samples:.1f} samples"),
+    Note("forward_level_differs", "warning",
+         "measured forward level {measured} differs from the test condition {setting} "
+         "({source})"),
+    Note("reverse_current_differs", "warning",
+         "measured storage-phase reverse current {measured} differs from the test condition "
+         "{setting} ({source})"),
+    Note("uneven_time_steps", "ok", "uneven time steps: resampled to {step}"),
+    # The count is printed as a float ("2.0 repeated ..."), as the table always has.
+    Note("repeated_time_stamps", "ok", "{count:.1f} repeated time stamp(s) averaged"),
+    Note("captures_disagree", "rejected",
+         "captures in {count} files ({files}) disagree: trr {low} to {high}; one id on two "
+         "parts? Check the files"),
+    Note("mean_of_captures", "ok", "mean of {count} captures, trr spread {spread}"),
+    Note("mean_of_usable_captures", "ok",
+         "mean of {count} captures ({rejected} rejected), trr spread {spread}"),
+    Note("capture_files", "ok", "files {files}"),
+])
 
 EDGE_FRACTION = 0.5          # zero-crossing hysteresis: ±50 % of min(IF, reverse peak)
 SMOOTH_FRACTION = 1.0 / 20   # triangle half-width / (t50 − t0) ...
@@ -205,7 +269,14 @@ def _integral(time, y, t_from, t_to):
     return out
 
 
-# --------------------------------------------------------------------------- analysis
+# --------------------------------------------------------------------------- solve
+
+# What the analysis gives per waveform: the results, then what the notes quote.
+WAVE_COLUMNS = ("t0_s", "if_A", "irrm_A", "ir_A", "t_peak_s", "t_end_s", "trr_s", "ta_s",
+                "tb_s", "qrr_C", "softness", "tt_s", "end_level_A", "noise_A", "decay_tau_s",
+                "lowest_A", "start_A", "peak_A", "level_A", "after_peak_s", "tail_A",
+                "floor_A")
+
 
 def analyse_waveforms(time: np.ndarray, current: np.ndarray, settings: RecoverySettings
                       ) -> dict[str, np.ndarray]:
@@ -221,33 +292,75 @@ def analyse_waveforms(time: np.ndarray, current: np.ndarray, settings: RecoveryS
     -------
     dict of (g,) arrays
         ``t0_s, if_A, irrm_A, ir_A, t_peak_s, t_end_s, trr_s, ta_s, tb_s, qrr_C,
-        softness, tt_s, end_level_A, noise_A, decay_tau_s`` (NaN where not found),
-        ``reject`` (object: the reason, '' when usable) and ``warn`` (object: '; '
-        joined remarks, '' for none).
+        softness, tt_s, end_level_A, noise_A, decay_tau_s`` (NaN where not found or
+        refused); ``reason`` (object: the code of :data:`REJECTIONS` that refuses the
+        waveform, '' when usable); ``decay_cut_short`` (bool: the record stops before
+        the 25 % point, so the peak sample stands in for the knee); and what the
+        reasons quote, unmasked: ``lowest_A, start_A`` (lowest and first current),
+        ``peak_A, level_A`` (largest reverse current, end level), ``after_peak_s,
+        tail_A, floor_A`` (record after the peak, last current, lowest end level).
     """
     g, n = current.shape
     r = np.arange(g)
-    col = np.arange(n)[None, :]
-    reject = np.full(g, "", dtype=object)
-    nan = np.full(g, np.nan)
-    out = {k: nan.copy() for k in ("t0_s", "if_A", "irrm_A", "ir_A", "t_peak_s", "t_end_s",
-                                   "trr_s", "ta_s", "tb_s", "qrr_C", "softness", "tt_s",
-                                   "end_level_A", "noise_A", "decay_tau_s")}
-    out["reject"] = reject
-    out["warn"] = np.full(g, "", dtype=object)
+    out = {k: np.full(g, np.nan) for k in WAVE_COLUMNS}
+    reason = out["reason"] = np.full(g, "", dtype=object)
+    out["decay_cut_short"] = np.zeros(g, dtype=bool)
     if n < MIN_SAMPLES:
-        reject[:] = f"only {n} samples: too few for a recovery waveform"
+        reason[:] = "too_few_samples"
         return out
     dt = (time[:, -1] - time[:, 0]) / (n - 1)
     d2 = current[:, 2:] - 2.0 * current[:, 1:-1] + current[:, :-2]
     sigma = MAD_TO_SIGMA * np.median(np.abs(d2), axis=1) / np.sqrt(6.0)
-    out["noise_A"] = sigma
+    i_f, low, start = _reversal(current, sigma, reason)
+    live = reason == ""
+    out.update(noise_A=sigma, lowest_A=low, start_A=start)
+    if not live.any():
+        return out
+    t0, edge_ok = _zero_crossing(time, current, i_f, low, live)
+    reason[live & ~edge_ok] = "no_zero_crossing"
+    live = reason == ""
+    rev = -current
+    peak_curve, smooth, sigma_s = _smoothed(time, rev, t0, low, sigma, dt, live)
+    irrm, k_peak, band_h, t50, t25, no_knee = _peak(time, t0, live, peak_curve, smooth, sigma_s)
+    knee = np.where(no_knee, time[r, k_peak], _knee(t50, t25))
+    t_peak = np.clip(knee, t0, np.where(np.isfinite(t50), t50, np.inf))
+    t_end, level, lowest, missing, too_high = _end_of_recovery(time, smooth, irrm, band_h,
+                                                               k_peak, settings)
+    reason[live & too_high] = "peak_below_end_level"
+    live = reason == ""
+    reason[live & missing] = "ends_before_recovery"
+    live = reason == ""
+    t_last = time[:, -1]
+    out.update(peak_A=irrm, level_A=level, after_peak_s=t_last - time[r, k_peak],
+               tail_A=smooth[:, -1], floor_A=lowest, decay_cut_short=live & no_knee)
 
-    # Forward level, reversal and the zero crossing, on the raw samples.
+    t_peak = np.minimum(t_peak, t_end)
+    ts = t_peak - t0
+    mid = (time >= (t0 + 0.25 * ts)[:, None]) & (time <= (t0 + 0.75 * ts)[:, None])
+    i_r = _row_median(np.where(mid, rev, np.nan))
+    i_r = np.where(mid.sum(axis=1) >= 3, i_r, irrm)
+    qrr = _integral(time, rev, t0, np.minimum(t_end, t_last))
+    with np.errstate(all="ignore"):
+        softness, tt = (t_end - t_peak) / ts, transit_time(ts, i_f, i_r)
+    decay_tau = (t25 - t50) / np.log(DECAY_FRACTIONS[0] / DECAY_FRACTIONS[1])
+    for key, x in (("t0_s", t0), ("if_A", i_f), ("irrm_A", irrm), ("ir_A", i_r),
+                   ("t_peak_s", t_peak), ("t_end_s", t_end), ("trr_s", t_end - t0),
+                   ("ta_s", ts), ("tb_s", t_end - t_peak), ("qrr_C", qrr),
+                   ("end_level_A", level), ("decay_tau_s", decay_tau),
+                   ("softness", softness), ("tt_s", tt)):
+        out[key] = np.where(live, x, np.nan)
+    return out
+
+
+def _reversal(current, sigma, reason):
+    """Forward level, lowest and first current of each row; refuses rows without a recovery.
+
+    Sets ``reason`` (in place) to never_reverses, starts_reversed or no_forward_level.
+    """
+    col = np.arange(current.shape[1])[None, :]
     low = current.min(axis=1)
     deep = current < 0.5 * low[:, None]
-    k_deep = _first(deep)
-    before = col < k_deep[:, None]
+    before = col < _first(deep)[:, None]
     peak_fwd = np.max(np.where(before, current, -np.inf), axis=1)
     fwd = before & (current >= FORWARD_PLATEAU * peak_fwd[:, None]) & (peak_fwd[:, None] > 0)
     n_fwd = fwd.sum(axis=1)
@@ -255,27 +368,23 @@ def analyse_waveforms(time: np.ndarray, current: np.ndarray, settings: RecoveryS
     start = np.median(current[:, :3], axis=1)
     noise_floor = REVERSE_SIGMAS * sigma
     reversed_enough = -low > np.maximum(noise_floor, REVERSE_MIN * np.where(n_fwd > 0, i_f, 0.0))
-    for k in np.flatnonzero(~reversed_enough):
-        reject[k] = (f"the current never reverses beyond the noise (lowest reading "
-                     f"{si(low[k], 'A')}, noise {si(sigma[k], 'A')} rms): no recovery in "
-                     f"this record")
+    reason[~reversed_enough] = "never_reverses"
     starts_rev = reversed_enough & (start < -np.maximum(noise_floor, REVERSE_MIN * -low))
-    for k in np.flatnonzero(starts_rev & (reject == "")):
-        reject[k] = (f"the record starts with the current already reversed "
-                     f"({si(start[k], 'A')}): no forward level before the switch (or the "
-                     f"sign is inverted: positive current is forward)")
-    no_fwd = (reject == "") & ((n_fwd < MIN_FORWARD_SAMPLES) | ~(peak_fwd > noise_floor))
-    for k in np.flatnonzero(no_fwd):
-        reject[k] = ("the record starts at the switch: too few samples of the forward "
-                     "level before the current reverses")
-    live = reject == ""
-    if not live.any():
-        return out
+    reason[starts_rev] = "starts_reversed"
+    no_fwd = (reason == "") & ((n_fwd < MIN_FORWARD_SAMPLES) | ~(peak_fwd > noise_floor))
+    reason[no_fwd] = "no_forward_level"
+    return i_f, low, start
+
+
+def _zero_crossing(time, current, i_f, low, live):
+    """t0 of each row (hysteresis, then the least-squares line through the edge) and
+    whether a clear crossing was found."""
+    g, n = current.shape
+    r = np.arange(g)
+    col = np.arange(n)[None, :]
     h_edge = EDGE_FRACTION * np.minimum(np.where(live, i_f, 1.0), -low)
-    neg = (current < -h_edge[:, None])
-    k_neg = _first(neg)
-    pos = (col < k_neg[:, None]) & (current > h_edge[:, None])
-    k_pos = _last(pos)
+    k_neg = _first(current < -h_edge[:, None])
+    k_pos = _last((col < k_neg[:, None]) & (current > h_edge[:, None]))
     edge_ok = live & (k_neg > 0) & (k_pos >= 0)
     band = (col >= k_pos[:, None]) & (col <= k_neg[:, None]) & edge_ok[:, None]
     tz = time - time[r, np.maximum(k_pos, 0)][:, None]
@@ -293,12 +402,13 @@ def analyse_waveforms(time: np.ndarray, current: np.ndarray, settings: RecoveryS
     span = time[r, kn] - time[r, kp]
     use_line = (slope < 0) & (t0_line >= 0) & (t0_line <= span)
     t0 = np.where(use_line, time[r, kp] + t0_line, t0_interp)
-    t0 = np.where(edge_ok, t0, np.nan)
-    reject[live & ~edge_ok] = "no clear zero crossing of the current"
-    live = reject == ""
+    return np.where(edge_ok, t0, np.nan), edge_ok
 
-    # Smoothing tied to the waveform's own time scale (t0 to the raw 50 % point).
-    rev = -current
+
+def _smoothed(time, rev, t0, low, sigma, dt, live):
+    """The reverse current smoothed for the peak and for the decay, and the noise left
+    on the latter; the scales come from the raw 50 % and 25 % points."""
+    n = rev.shape[1]
     k_min = np.argmax(rev, axis=1)
     raw_band = HYSTERESIS_SIGMAS * sigma
     t50_raw = _fall_crossing(time, rev, DECAY_FRACTIONS[0] * -low, raw_band, k_min)
@@ -316,7 +426,13 @@ def analyse_waveforms(time: np.ndarray, current: np.ndarray, settings: RecoveryS
     peak_curve, _ = smoothed(SMOOTH_FRACTION * (t50_raw - t0))
     smooth, sigma_s = smoothed(np.fmin(SMOOTH_FRACTION * (t50_raw - t0),
                                        SMOOTH_DECAY * (t25_raw - t50_raw)))
+    return peak_curve, smooth, sigma_s
 
+
+def _peak(time, t0, live, peak_curve, smooth, sigma_s):
+    """Irrm and its sample, the hysteresis band, the 50 % and 25 % points, and whether
+    the record stops before the 25 % point (no knee)."""
+    r = np.arange(len(t0))
     after_t0 = time > np.where(live, t0, np.inf)[:, None]
     masked = np.where(after_t0, peak_curve, -np.inf)
     k_peak = np.argmax(masked, axis=1)
@@ -325,77 +441,34 @@ def analyse_waveforms(time: np.ndarray, current: np.ndarray, settings: RecoveryS
     band_h = np.maximum(HYSTERESIS_SIGMAS * sigma_s, HYSTERESIS_MIN * irrm)
     t50 = _fall_crossing(time, smooth, DECAY_FRACTIONS[0] * irrm, band_h, k_peak)
     t25 = _fall_crossing(time, smooth, DECAY_FRACTIONS[1] * irrm, band_h, k_peak)
-    knee = t50 - (t25 - t50) * np.log(1.0 / DECAY_FRACTIONS[0]) / np.log(
-        DECAY_FRACTIONS[0] / DECAY_FRACTIONS[1])
     # A record that stops between the end level and 25 % of Irrm has no knee: the peak
     # sample stands in.
-    no_knee = np.isnan(knee)
-    knee = np.where(no_knee, time[r, k_peak], knee)
-    t_peak = np.clip(knee, t0, np.where(np.isfinite(t50), t50, np.inf))
-    decay_tau = (t25 - t50) / np.log(DECAY_FRACTIONS[0] / DECAY_FRACTIONS[1])
+    return irrm, k_peak, band_h, t50, t25, np.isnan(_knee(t50, t25))
 
+
+def _knee(t50, t25):
+    """Where the exponential through the 50 % and 25 % points reaches Irrm."""
+    return t50 - (t25 - t50) * np.log(1.0 / DECAY_FRACTIONS[0]) / np.log(
+        DECAY_FRACTIONS[0] / DECAY_FRACTIONS[1])
+
+
+def _end_of_recovery(time, smooth, irrm, band_h, k_peak, settings):
+    """End of recovery by the reel's rule: t_end, the end level (NaN when extrapolated),
+    the lowest level the rule needs, where that level is never reached, and where the
+    peak does not reach the end level."""
     s = settings
-    t_last = time[:, -1]
     if s.end_rule == "extrapolate":
         f1, f2 = s.end_value
         t1 = _fall_crossing(time, smooth, f1 * irrm, band_h, k_peak)
         t2 = _fall_crossing(time, smooth, f2 * irrm, band_h, k_peak)
         t_end = t2 + (t2 - t1) * f2 / (f1 - f2)
-        level = np.full(g, np.nan)
-        missing = np.isnan(t2)
-        lowest = f2 * irrm
-    else:
-        level = s.end_value[0] * irrm if s.end_rule == "fraction_of_peak" \
-            else np.full(g, s.end_value[0])
-        too_high = live & (level >= irrm)
-        for k in np.flatnonzero(too_high):
-            reject[k] = (f"the peak reverse current {si(irrm[k], 'A')} does not reach "
-                         f"the end level {si(level[k], 'A')}")
-        live = reject == ""
-        t_end = _fall_crossing(time, smooth, level, band_h, k_peak)
-        missing = np.isnan(t_end)
-        lowest = level
-    ends_early = live & missing
-    for k in np.flatnonzero(ends_early):
-        reject[k] = (f"the record ends {si(t_last[k] - time[k, k_peak[k]], 's')} after the "
-                     f"peak with the reverse current still at {si(smooth[k, -1], 'A')}, "
-                     f"above the end of recovery ({si(lowest[k], 'A')}): ends before recovery")
-    live = reject == ""
+        return t_end, np.full(len(irrm), np.nan), f2 * irrm, np.isnan(t2), np.zeros(len(irrm), bool)
+    level = s.end_value[0] * irrm if s.end_rule == "fraction_of_peak" \
+        else np.full(len(irrm), s.end_value[0])
+    t_end = _fall_crossing(time, smooth, level, band_h, k_peak)
+    return t_end, level, level, np.isnan(t_end), level >= irrm
 
-    t_peak = np.minimum(t_peak, t_end)
-    ts = t_peak - t0
-    mid = (time >= (t0 + 0.25 * ts)[:, None]) & (time <= (t0 + 0.75 * ts)[:, None])
-    i_r = _row_median(np.where(mid, rev, np.nan))
-    i_r = np.where(mid.sum(axis=1) >= 3, i_r, irrm)
-    qrr = _integral(time, rev, t0, np.minimum(t_end, t_last))
-    warn = out["warn"]
-    for k in np.flatnonzero(live & no_knee):
-        warn[k] = ("the record ends before the current falls to 25 % of Irrm: the largest "
-                   "sample marks the end of the storage phase (ta, tb, tt_s less certain)")
-    for k in np.flatnonzero(live & (t_end > t_last)):
-        late = (f"the extrapolated end lies {si(t_end[k] - t_last[k], 's')} after the record "
-                f"ends; Qrr counted to the end of the record")
-        warn[k] = "; ".join(x for x in (warn[k], late) if x)
-
-    def keep(x):
-        return np.where(live, x, np.nan)
-
-    out.update({
-        "t0_s": keep(t0), "if_A": keep(i_f), "irrm_A": keep(irrm), "ir_A": keep(i_r),
-        "t_peak_s": keep(t_peak), "t_end_s": keep(t_end), "trr_s": keep(t_end - t0),
-        "ta_s": keep(ts), "tb_s": keep(t_end - t_peak), "qrr_C": keep(qrr),
-        "end_level_A": keep(level), "decay_tau_s": keep(decay_tau),
-    })
-    with np.errstate(all="ignore"):
-        out["softness"] = keep((t_end - t_peak) / ts)
-        out["tt_s"] = keep(transit_time(ts, i_f, i_r))
-    for k in np.flatnonzero(live & ((t_end - t0) < COARSE_SAMPLES * dt)):
-        warn[k] = "; ".join(x for x in (warn[k], f"coarse sampling: trr spans only "
-                            f"{(t_end[k] - t0[k]) / dt[k]:.1f} samples") if x)
-    return out
-
-
-# --------------------------------------------------------------------------- the table
+# --------------------------------------------------------------------------- prepare helpers
 
 def _in_order(*keys) -> bool:
     """Whether rows are already sorted by keys[0], then keys[1], ... (as lexsort would)."""
@@ -423,6 +496,8 @@ def _uniform(t: np.ndarray, i: np.ndarray) -> tuple[np.ndarray, np.ndarray, bool
     return grid, np.interp(grid, t, i), True
 
 
+# --------------------------------------------------------------------------- prepare
+
 # Samples analysed in one stack: each of the analysis' temporaries is this many floats
 # (8 MB), so memory stays flat whatever the reel's size, and the arrays stay in cache.
 STACK_SAMPLES = 1_000_000
@@ -447,12 +522,12 @@ def fit_recovery(points, settings: RecoverySettings) -> pd.DataFrame:
     Returns
     -------
     DataFrame
-        One row per device, sorted by id: ``device, status, note, trr_s, ta_s, tb_s,
-        irrm_A, qrr_C, softness, tt_s`` and ``if_A`` (measured forward level),
-        ``ir_A`` (reverse current of the storage phase), ``t0_s``, ``end_level_A``,
-        ``decay_tau_s``, ``noise_A``, the test conditions ``if_set_A, ir_set_A``, the
-        ``end_rule``, and the capture (``samples, sample_period_s, record_start_s,
-        record_end_s, captures``).
+        One row per device, sorted by id: ``device, status, note, reason_code, trr_s,
+        ta_s, tb_s, irrm_A, qrr_C, softness, tt_s`` and ``if_A`` (measured forward
+        level), ``ir_A`` (reverse current of the storage phase), ``t0_s``,
+        ``end_level_A``, ``decay_tau_s``, ``noise_A``, the test conditions ``if_set_A,
+        ir_set_A``, the ``end_rule``, and the capture (``samples, sample_period_s,
+        record_start_s, record_end_s, captures``).
     """
     tables = [points] if isinstance(points, pd.DataFrame) else points
     return _device_table(_concat_captures([_captures(t, settings) for t in tables]), settings)
@@ -460,19 +535,16 @@ def fit_recovery(points, settings: RecoverySettings) -> pd.DataFrame:
 
 @dataclass
 class _Captures:
-    """Per-capture (device and file) results, sorted by device and file."""
+    """Per-capture (device and file) arrays, sorted by device and file.
+
+    ``cols`` holds what :func:`analyse_waveforms` gives, and the capture's test
+    conditions (``if_set, ir_set`` and whether a column gave them, ``if_given,
+    ir_given``), ``length, dt, t_first, t_final, resampled, repeated``.
+    """
 
     device: np.ndarray
     source: np.ndarray
-    res: dict
-    status: np.ndarray
-    notes: list
-    if_set: np.ndarray
-    ir_set: np.ndarray
-    length: np.ndarray
-    dt: np.ndarray
-    t_first: np.ndarray
-    t_final: np.ndarray
+    cols: dict
 
 
 def _concat_captures(parts: list[_Captures]) -> _Captures:
@@ -481,17 +553,12 @@ def _concat_captures(parts: list[_Captures]) -> _Captures:
     device = np.concatenate([p.device for p in parts])
     source = np.concatenate([p.source for p in parts])
     order = np.lexsort((pd.factorize(source, sort=True)[0], pd.factorize(device, sort=True)[0]))
-    cat = lambda name: np.concatenate([getattr(p, name) for p in parts])[order]  # noqa: E731
-    notes = [n for p in parts for n in p.notes]
     return _Captures(device[order], source[order],
-                     {k: np.concatenate([p.res[k] for p in parts])[order] for k in RESULT_COLUMNS},
-                     cat("status"), [notes[i] for i in order], cat("if_set"), cat("ir_set"),
-                     cat("length"), cat("dt"), cat("t_first"), cat("t_final"))
+                     {k: np.concatenate([p.cols[k] for p in parts])[order] for k in parts[0].cols})
 
 
 def _captures(points: pd.DataFrame, settings: RecoverySettings) -> _Captures:
     """Analyse every capture in one table of samples."""
-    s = settings
     dev_codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
     src_codes, src_names = pd.factorize(points["source"].astype(str).to_numpy(), sort=True)
     t_all = points["time"].to_numpy(dtype=float)
@@ -505,33 +572,40 @@ def _captures(points: pd.DataFrame, settings: RecoverySettings) -> _Captures:
     wave_new[1:] = (dc[1:] != dc[:-1]) | (sc[1:] != sc[:-1])
     wave = np.cumsum(wave_new) - 1
     n_wave = int(wave[-1]) + 1 if len(wave) else 0
-    # Repeated time stamps inside one capture: the mean current.
+    cols = _waves(t, cur, wave_new, wave, n_wave, settings)
+    for key, column, default in (("if", "forward_current", settings.forward_current),
+                                 ("ir", "reverse_current", settings.reverse_current)):
+        cols[f"{key}_set"], cols[f"{key}_given"] = _condition(points, column, default, order,
+                                                              wave, n_wave)
+    first = np.flatnonzero(wave_new)
+    return _Captures(np.asarray(names, dtype=object)[dc[first]],
+                     np.asarray(src_names, dtype=object)[sc[first]], cols)
+
+
+def _condition(points, column, default, order, wave, n_wave):
+    """A test condition per capture (the median of its column), and whether the file gave it."""
+    x = points[column].to_numpy(dtype=float) if column in points else None
+    if x is None or not np.isfinite(x).any():   # not in the files: reel.yaml's value
+        return np.full(n_wave, default), np.zeros(n_wave, dtype=bool)
+    x = x[order]
+    ok = np.isfinite(x)
+    val = pd.Series(np.where(ok, x, np.nan)).groupby(wave).median().to_numpy()
+    given = np.isfinite(val)
+    return np.where(given, val, default), given
+
+
+def _waves(t, cur, wave_new, wave, n_wave, settings):
+    """Each capture's samples (sorted by capture, then time) on a uniform grid, analysed
+    in stacks of equal length; repeated time stamps give their mean current."""
     sample_new = wave_new.copy()
     sample_new[1:] |= t[1:] != t[:-1]
     samp = np.cumsum(sample_new) - 1
-    n_samp = int(samp[-1]) + 1 if len(samp) else 0
-    counts = np.bincount(samp, minlength=n_samp)
-    cur_u = np.bincount(samp, cur, n_samp) / counts
+    samples = Groups(samp, int(samp[-1]) + 1 if len(samp) else 0)
+    cur_u = _row_order_sum(samples, cur) / samples.counts
     first = np.flatnonzero(sample_new)
-    t_u, wave_u = t[first], wave[first]
-    repeated = np.bincount(wave_u, counts > 1, n_wave)
-    wave_dev = dc[np.flatnonzero(wave_new)]
-    wave_src = np.asarray(src_names, dtype=object)[sc[np.flatnonzero(wave_new)]]
-
-    def condition(column, default):
-        x = points[column].to_numpy(dtype=float) if column in points else None
-        if x is None or not np.isfinite(x).any():   # not in the files: reel.yaml's value
-            return np.full(n_wave, default), np.zeros(n_wave, dtype=bool)
-        x = x[order]
-        ok = np.isfinite(x)
-        val = pd.Series(np.where(ok, x, np.nan)).groupby(wave).median().to_numpy()
-        given = np.isfinite(val)
-        return np.where(given, val, default), given
-
-    if_set, if_given = condition("forward_current", s.forward_current)
-    ir_set, ir_given = condition("reverse_current", s.reverse_current)
-
-    bounds = np.concatenate([[0], np.cumsum(np.bincount(wave_u, minlength=n_wave))])
+    t_u = t[first]
+    per_wave = Groups(wave[first], n_wave)
+    bounds = np.append(per_wave.starts, len(first))
     waves_t, waves_i, resampled = [], [], np.zeros(n_wave, dtype=bool)
     for w in range(n_wave):        # slicing only; the rare irregular capture is resampled
         tw, iw = t_u[bounds[w]:bounds[w + 1]], cur_u[bounds[w]:bounds[w + 1]]
@@ -539,125 +613,198 @@ def _captures(points: pd.DataFrame, settings: RecoverySettings) -> _Captures:
         waves_t.append(tw)
         waves_i.append(iw)
     length = np.array([len(x) for x in waves_t], dtype=np.int64)
-    res = {k: np.full(n_wave, np.nan) for k in RESULT_COLUMNS}
-    reject = np.full(n_wave, "", dtype=object)
-    warn = np.full(n_wave, "", dtype=object)
-    for n in np.unique(length):     # waveforms of equal length are stacked, a block at a time
+    cols = _analyse_stacks(waves_t, waves_i, length, settings)
+    cols.update(length=length, resampled=resampled,
+                repeated=per_wave.count(samples.counts > 1),
+                dt=np.array([(x[-1] - x[0]) / (len(x) - 1) if len(x) > 1 else np.nan
+                             for x in waves_t]),
+                t_first=np.array([x[0] for x in waves_t]),
+                t_final=np.array([x[-1] for x in waves_t]))
+    return cols
+
+
+def _analyse_stacks(waves_t, waves_i, length, settings):
+    """:func:`analyse_waveforms` over every capture, waveforms of equal length stacked."""
+    empty = np.zeros((len(length), 0))
+    cols = analyse_waveforms(empty, empty, settings)    # arrays of the right kinds, overwritten
+    for n in np.unique(length):     # a block of equal length at a time
         same = np.flatnonzero(length == n)
         block = max(1, STACK_SAMPLES // max(int(n), 1))
         for ids in (same[i:i + block] for i in range(0, len(same), block)):
-            tt = np.stack([waves_t[w] for w in ids])
-            ii = np.stack([waves_i[w] for w in ids])
-            a = analyse_waveforms(tt, ii, s)
-            for k in RESULT_COLUMNS:
-                res[k][ids] = a[k]
-            reject[ids], warn[ids] = a["reject"], a["warn"]
-    dt = np.array([(x[-1] - x[0]) / (len(x) - 1) if len(x) > 1 else np.nan for x in waves_t])
-    t_first = np.array([x[0] for x in waves_t])
-    t_final = np.array([x[-1] for x in waves_t])
+            a = analyse_waveforms(np.stack([waves_t[w] for w in ids]),
+                                  np.stack([waves_i[w] for w in ids]), settings)
+            for k, v in a.items():
+                cols[k][ids] = v
+    return cols
 
-    # Per-wave notes: conditions and what was done to the capture.
-    wave_notes: list[list[str]] = [[] for _ in range(n_wave)]
-    status_w = np.where(reject != "", "rejected", "ok").astype(object)
-    for w in range(n_wave):
-        note = wave_notes[w]
-        if reject[w]:
-            note.append(reject[w])
-            continue
-        if warn[w]:
-            note.append(warn[w])
-            status_w[w] = "warning"
-        for label, measured, setting, given, key in (
-                ("forward level", res["if_A"][w], if_set[w], if_given[w], "forward_current"),
-                ("storage-phase reverse current", res["ir_A"][w], ir_set[w], ir_given[w],
-                 "reverse_current")):
-            if abs(measured / setting - 1.0) > CONDITION_MISMATCH:
-                where = f"column {key}_A" if given else f"reel.yaml recovery.{key}_A"
-                note.append(f"measured {label} {si(measured, 'A')} differs from the test "
-                            f"condition {si(setting, 'A')} ({where})")
-                status_w[w] = "warning"
-        if resampled[w]:
-            note.append(f"uneven time steps: resampled to {si(dt[w], 's')}")
-        if repeated[w]:
-            note.append(f"{repeated[w]} repeated time stamp(s) averaged")
+# --------------------------------------------------------------------------- diagnose
 
-    return _Captures(np.asarray(names, dtype=object)[wave_dev], wave_src, res, status_w,
-                     wave_notes, if_set, ir_set, length, dt, t_first, t_final)
+def _quoted(x, unit=None):
+    """A field of a note: ``x`` per capture (or device), with its unit where it is quoted."""
+    return x if unit is None else (lambda i: si(x[i], unit))
+
+
+# What each rejection quotes: field -> (column of the captures, unit).
+_QUOTES = {
+    "too_few_samples": {"samples": ("length", None)},
+    "never_reverses": {"lowest": ("lowest_A", "A"), "noise": ("noise_A", "A")},
+    "starts_reversed": {"start": ("start_A", "A")},
+    "peak_below_end_level": {"peak": ("peak_A", "A"), "level": ("level_A", "A")},
+    "ends_before_recovery": {"after_peak": ("after_peak_s", "s"), "tail": ("tail_A", "A"),
+                             "floor": ("floor_A", "A")},
+}
+
+
+def _capture_findings(c: _Captures) -> list[Finding]:
+    """The notes of each capture, in their order: why it is refused, or its remarks."""
+    r = c.cols
+    reason = r["reason"]
+    live = reason == ""
+    found = [Finding(code, reason == code,
+                     {"all_rejected": "", **{name: _quoted(r[key], unit) for name, (key, unit)
+                                             in _QUOTES.get(code, {}).items()}})
+             for code in REJECTIONS]
+    found.append(Finding("decay_cut_short", r["decay_cut_short"]))
+    found.append(Finding("end_past_record", live & (r["t_end_s"] > r["t_final"]),
+                         {"beyond": _quoted(r["t_end_s"] - r["t_final"], "s")}))
+    with np.errstate(all="ignore"):
+        found.append(Finding("coarse_sampling", live & (r["trr_s"] < COARSE_SAMPLES * r["dt"]),
+                             {"samples": r["trr_s"] / r["dt"]}))
+    for code, key, column in (("forward_level_differs", "if", "forward_current"),
+                              ("reverse_current_differs", "ir", "reverse_current")):
+        measured, setting, given = r[f"{key}_A"], r[f"{key}_set"], r[f"{key}_given"]
+        with np.errstate(all="ignore"):
+            off = np.abs(measured / setting - 1.0) > CONDITION_MISMATCH
+        source = np.where(given, f"column {column}_A", f"reel.yaml recovery.{column}_A")
+        found.append(Finding(code, live & off, {"measured": _quoted(measured, "A"),
+                                                "setting": _quoted(setting, "A"),
+                                                "source": source}))
+    found.append(Finding("uneven_time_steps", live & r["resampled"],
+                         {"step": _quoted(r["dt"], "s")}))
+    found.append(Finding("repeated_time_stamps", live & (r["repeated"] > 0),
+                         {"count": r["repeated"]}))
+    return found
+
+
+def _device_findings(c: _Captures, groups: Groups, good: np.ndarray,
+                     found: list[Finding]) -> list[Finding]:
+    """The notes of each device: whether its captures disagree, the notes of the captures
+    it shows (its usable ones, or its first when none is usable), how they were combined,
+    and its files when it has several captures."""
+    n_all, n_good = groups.counts, groups.count(good)
+    first = np.zeros(len(good), dtype=bool)
+    first[groups.starts[n_all > 0]] = True
+    shown = good | (groups.each(n_good == 0) & first)
+    before = np.cumsum(shown) - shown
+    rank = before - groups.each(before[groups.starts])
+    trr = c.cols["trr_s"]
+    # The spread of trr over the usable captures (NaN if one of them has none).
+    spread = np.where(groups.count(good & np.isnan(trr)) > 0, np.nan, groups.spread(trr, good))
+    out = [_disagreement(c, groups, good, spread)]
+    shown_at: list[np.ndarray] = []
+    for k in range(int(rank[shown].max()) + 1 if shown.any() else 0):
+        at = np.full(groups.n, -1)
+        at[groups.codes[shown & (rank == k)]] = np.flatnonzero(shown & (rank == k))
+        shown_at.append(at)
+        out += [_on_devices(f, shown_at, n_all) for f in found]
+    several = (n_all > 1) & (n_good > 0)
+    fields = {"count": n_good, "rejected": n_all - n_good, "spread": _quoted(spread, "s")}
+    out.append(Finding("mean_of_captures", several & (n_good == n_all), fields))
+    out.append(Finding("mean_of_usable_captures", several & (n_good < n_all), fields))
+    out.append(Finding("capture_files", n_all > 1,
+                       {"files": lambda d: _file_names(c.source, groups, d)}))
+    return out
+
+
+def _on_devices(f: Finding, shown_at: list[np.ndarray], n_all: np.ndarray) -> Finding:
+    """A capture finding moved onto the devices showing that capture as their
+    ``len(shown_at)``-th; a sentence one of their earlier captures gave is not repeated."""
+    at = shown_at[-1]
+    has = at >= 0
+    where = has & np.asarray(f.where)[np.where(has, at, 0)]
+    if len(shown_at) > 1:
+        def text(w):
+            return CATALOGUE.text(f.code, **f.fields_of(w))
+        for d in np.flatnonzero(where):
+            earlier = {text(a[d]) for a in shown_at[:-1] if f.where[a[d]]}
+            where[d] = text(at[d]) not in earlier
+    fields = {name: (lambda d, name=name: f.fields_of(at[d])[name]) for name in f.fields}
+    if f.code in REJECTIONS:
+        fields["all_rejected"] = lambda d: (f" (all {n_all[d]} captures rejected)"
+                                            if n_all[d] > 1 else "")
+    return Finding(f.code, where, fields, f.status)
+
+
+def _disagreement(c: _Captures, groups: Groups, good: np.ndarray, spread: np.ndarray
+                  ) -> Finding:
+    """Usable captures of one id in several files whose trr spread exceeds
+    :data:`CAPTURES_DISAGREE` of their mean: one id on two parts?"""
+    trr = c.cols["trr_s"]
+    several = groups.each(groups.counts > 1)
+    file = np.zeros(len(trr), dtype=np.int64)
+    if several.any():
+        file[several] = pd.factorize(np.array([Path(s).name for s in c.source[several]]))[0]
+    n_files = groups.distinct(file, good & several)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = groups.sum(np.where(good, trr, 0.0)) / groups.count(good)
+    kept = np.where(good, trr, np.nan)
+    return Finding("captures_disagree", (n_files > 1) & (spread > CAPTURES_DISAGREE * mean),
+                   {"count": n_files, "files": lambda d: _file_names(c.source, groups, d, good),
+                    "low": _quoted(groups.min(kept), "s"), "high": _quoted(groups.max(kept), "s")})
+
+
+def _file_names(source: np.ndarray, groups: Groups, d: int, use=None) -> str:
+    """The file names of device ``d``'s captures (those in ``use``), sorted."""
+    block = slice(groups.starts[d], groups.starts[d] + groups.counts[d])
+    names = source[block] if use is None else source[block][use[block]]
+    return ", ".join(sorted({Path(s).name for s in names}))
+
+
+# --------------------------------------------------------------------------- the table
+
+COLUMNS = ("device", "status", "note", "reason_code", "trr_s", "ta_s", "tb_s", "irrm_A",
+           "qrr_C", "softness", "tt_s", "if_A", "ir_A", "t0_s", "end_level_A", "decay_tau_s",
+           "noise_A", "if_set_A", "ir_set_A", "end_rule", "samples", "sample_period_s",
+           "record_start_s", "record_end_s", "captures")
+
+
+def _row_order_sum(groups: Groups, x: np.ndarray) -> np.ndarray:
+    """Per-group sums added in row order, from zero (as the table has always been summed).
+
+    :meth:`Groups.sum` adds a block's first row to the sum of the others, which differs
+    in the last bit from this for blocks of three rows or more.
+    """
+    return np.bincount(groups.codes, x, groups.n)
 
 
 def _device_table(c: _Captures, settings: RecoverySettings) -> pd.DataFrame:
-    """One row per device from its captures (sorted by device)."""
-    s = settings
-    wave_dev, names = pd.factorize(c.device, sort=True)
-    res, status_w, wave_notes, wave_src = c.res, c.status, c.notes, c.source
-    if_set, ir_set, length, dt, t_first, t_final = (c.if_set, c.ir_set, c.length, c.dt,
-                                                    c.t_first, c.t_final)
-    # One row per device: the mean of its usable captures (waves are sorted by device).
-    n_dev = len(names)
-    good = status_w != "rejected"
-    n_good = np.bincount(wave_dev, good, n_dev)
-    n_all = np.bincount(wave_dev, minlength=n_dev)
+    """One row per device from its captures (sorted by device): the mean of its usable ones."""
+    codes, names = pd.factorize(c.device, sort=True)
+    groups = Groups(codes, len(names))
+    r = c.cols
+    good = r["reason"] == ""
+    n_good = groups.count(good)
     # The captures a device's conditions come from: its usable ones, or all when none is.
-    chosen = good | (n_good[wave_dev] == 0)
-    n_chosen = np.bincount(wave_dev, chosen, n_dev)
+    chosen = good | groups.each(n_good == 0)
+    n_chosen = groups.count(chosen)
+    findings = _device_findings(c, groups, good, _capture_findings(c))
+    status, note, reason_code = compose(groups.n, findings, CATALOGUE)
 
     def mean_of(x, use, count):
         with np.errstate(invalid="ignore", divide="ignore"):
-            return np.bincount(wave_dev[use], x[use], n_dev) / np.where(count > 0, count, np.nan)
+            return _row_order_sum(groups, np.where(use, x, 0.0)) / np.where(count > 0, count,
+                                                                             np.nan)
 
-    def extreme(x, pick):
-        out = np.full(n_dev, -np.inf if pick is np.maximum else np.inf)
-        pick.at(out, wave_dev[chosen], x[chosen])
-        return out
-
-    table = {"device": [str(x) for x in names]}
-    status = np.where(n_good == 0, "rejected", "ok").astype(object)
-    status[np.unique(wave_dev[good & (status_w == "warning")])] = "warning"
-    table["status"] = status
-    first_wave = np.searchsorted(wave_dev, np.arange(n_dev))
-    notes = []
-    for d in range(n_dev):
-        w0 = first_wave[d]
-        if n_all[d] == 1:               # the usual case: one capture per device
-            note = "; ".join(dict.fromkeys(wave_notes[w0]))
-        else:
-            ws = np.arange(w0, w0 + n_all[d])
-            ok = ws[good[ws]]
-            if not len(ok):
-                note = "; ".join(wave_notes[w0]) + f" (all {len(ws)} captures rejected)"
-            else:
-                parts: list[str] = []
-                trr = res["trr_s"][ok]
-                files = sorted({Path(wave_src[w]).name for w in ok})
-                if len(files) > 1 and np.ptp(trr) > CAPTURES_DISAGREE * np.mean(trr):
-                    # Captures of one id in several files that do not agree: one id on two
-                    # parts?
-                    status[d] = "rejected"
-                    parts.append(f"captures in {len(files)} files ({', '.join(files)}) disagree: "
-                                 f"trr {si(np.min(trr), 's')} to {si(np.max(trr), 's')}; one id "
-                                 f"on two parts? Check the files")
-                for w in ok:
-                    parts += [x for x in wave_notes[w] if x not in parts]
-                parts.append(f"mean of {len(ok)} captures"
-                             + (f" ({len(ws) - len(ok)} rejected)" if len(ok) < len(ws) else "")
-                             + f", trr spread {si(np.ptp(res['trr_s'][ok]), 's')}")
-                note = "; ".join(parts)
-            files = ", ".join(sorted({Path(wave_src[w]).name for w in ws}))
-            note = "; ".join(x for x in (note, f"files {files}") if x)
-        notes.append(note)
-    table["note"] = notes
+    table = {"device": [str(x) for x in names], "status": status, "note": note,
+             "reason_code": reason_code}
     for k in RESULT_COLUMNS:
-        table[k] = mean_of(res[k], good, n_good)
-    table["if_set_A"] = mean_of(if_set, chosen, n_chosen)
-    table["ir_set_A"] = mean_of(ir_set, chosen, n_chosen)
-    table["end_rule"] = s.describe()
-    table["samples"] = np.bincount(wave_dev[chosen], length[chosen], n_dev).astype(np.int64)
-    table["sample_period_s"] = mean_of(dt, chosen, n_chosen)
-    table["record_start_s"] = extreme(t_first, np.minimum)
-    table["record_end_s"] = extreme(t_final, np.maximum)
-    table["captures"] = n_all
-    columns = ["device", "status", "note", "trr_s", "ta_s", "tb_s", "irrm_A", "qrr_C",
-               "softness", "tt_s", "if_A", "ir_A", "t0_s", "end_level_A", "decay_tau_s",
-               "noise_A", "if_set_A", "ir_set_A", "end_rule", "samples", "sample_period_s",
-               "record_start_s", "record_end_s", "captures"]
-    return pd.DataFrame(table, columns=columns)
+        table[k] = mean_of(r[k], good, n_good)
+    table["if_set_A"] = mean_of(r["if_set"], chosen, n_chosen)
+    table["ir_set_A"] = mean_of(r["ir_set"], chosen, n_chosen)
+    table["end_rule"] = settings.describe()
+    table["samples"] = groups.sum(np.where(chosen, r["length"], 0)).astype(np.int64)
+    table["sample_period_s"] = mean_of(r["dt"], chosen, n_chosen)
+    table["record_start_s"] = groups.min(np.where(chosen, r["t_first"], np.nan))
+    table["record_end_s"] = groups.max(np.where(chosen, r["t_final"], np.nan))
+    table["captures"] = groups.counts
+    return pd.DataFrame(table, columns=list(COLUMNS))
