@@ -601,7 +601,7 @@ def _waves(t, cur, wave_new, wave, n_wave, settings):
     sample_new[1:] |= t[1:] != t[:-1]
     samp = np.cumsum(sample_new) - 1
     samples = Groups(samp, int(samp[-1]) + 1 if len(samp) else 0)
-    cur_u = _row_order_sum(samples, cur) / samples.counts
+    cur_u = samples.sum(cur) / samples.counts
     first = np.flatnonzero(sample_new)
     t_u = t[first]
     per_wave = Groups(wave[first], n_wave)
@@ -768,15 +768,6 @@ COLUMNS = ("device", "status", "note", "reason_code", "trr_s", "ta_s", "tb_s", "
            "record_start_s", "record_end_s", "captures")
 
 
-def _row_order_sum(groups: Groups, x: np.ndarray) -> np.ndarray:
-    """Per-group sums added in row order, from zero (as the table has always been summed).
-
-    :meth:`Groups.sum` adds a block's first row to the sum of the others, which differs
-    in the last bit from this for blocks of three rows or more.
-    """
-    return np.bincount(groups.codes, x, groups.n)
-
-
 def _device_table(c: _Captures, settings: RecoverySettings) -> pd.DataFrame:
     """One row per device from its captures (sorted by device): the mean of its usable ones."""
     codes, names = pd.factorize(c.device, sort=True)
@@ -792,7 +783,7 @@ def _device_table(c: _Captures, settings: RecoverySettings) -> pd.DataFrame:
 
     def mean_of(x, use, count):
         with np.errstate(invalid="ignore", divide="ignore"):
-            return _row_order_sum(groups, np.where(use, x, 0.0)) / np.where(count > 0, count,
+            return groups.sum(np.where(use, x, 0.0)) / np.where(count > 0, count,
                                                                              np.nan)
 
     table = {"device": [str(x) for x in names], "status": status, "note": note,
