@@ -120,3 +120,22 @@ def test_rewording_every_note_changes_no_decision(tmp_path):
     # the rewording did reach what people read
     assert reworded > 40
     assert any(len(before["report"][app]["groups"]) > 1 for app in apps)
+
+
+def test_every_shipped_code_is_given_somewhere_in_the_source():
+    """A catalogue entry no code path can produce is a sentence nobody will read: each
+    code in kinset/notes/*.yaml appears as a string in the source that gives it."""
+    from pathlib import Path
+
+    import yaml
+
+    import kinset
+    root = Path(kinset.__file__).parent
+    source = "".join(p.read_text(encoding="utf-8") for p in root.rglob("*.py"))
+    files = sorted((root / "notes").glob("*.yaml"))
+    assert {f.stem for f in files} == {"forward", "leakage", "capacitance", "recovery",
+                                       "quantities", "matching"}
+    unused = [f"{f.name}: {code}" for f in files
+              for code in yaml.safe_load(f.read_text(encoding="utf-8"))
+              if f'"{code}"' not in source]
+    assert not unused, unused

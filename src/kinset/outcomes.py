@@ -2,9 +2,10 @@
 
 Every per-part outcome kinset reports (a dataset row's ``status`` and ``note``, an
 unmatched part's ``stage`` and ``reason``) is decided as a stable lower-case code first.
-Each code has one entry in a :class:`Catalogue`: the least status it gives a part and
-the template of its sentence. Sentences are made from codes in one place
-(:func:`compose`), at the edge, so rewording a template changes what people read and
+Each code has one entry in a :class:`Catalogue`, shipped as ``kinset/notes/<room>.yaml``:
+the least status it gives a part and the template of its sentence. Sentences are made
+from codes in one place (:func:`compose`), at the edge, so rewording a template changes
+what people read and
 nothing that a program decides (``tests/test_outcomes.py`` rewords every template and
 shows the tables, the sets and the report's groupings unchanged).
 
@@ -70,6 +71,17 @@ class Catalogue(Mapping[str, Note]):
 
     def __len__(self) -> int:
         return len(self._notes)
+
+    @classmethod
+    def load(cls, name: str, extra: Iterable[Note] = ()) -> "Catalogue":
+        """The catalogue shipped as ``kinset/notes/<name>.yaml`` (code -> status, text),
+        plus ``extra`` notes made in code (for codes generated from the registry)."""
+        import yaml
+        from importlib import resources
+        text = (resources.files("kinset") / "notes" / f"{name}.yaml").read_text(encoding="utf-8")
+        entries = yaml.safe_load(text) or {}
+        return cls(name, [*(Note(code, e["status"], e["text"]) for code, e in entries.items()),
+                          *extra])
 
     def text(self, code: str, **fields) -> str:
         """The sentence of ``code`` with its fields filled in."""

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from kinset.format import si
-from kinset.outcomes import Catalogue, Note, first_clause
+from kinset.outcomes import Catalogue, first_clause
 from kinset.physics.constants import ZERO_CELSIUS
 from kinset.physics.forward import (forward_voltage_tempco as _tempco,
                                     saturation_current_at, voltage_from_current)
@@ -26,20 +26,7 @@ READING_TEMPERATURE_K = 0.5   # [K] a reading serves only at its own temperature
 RANGE_SLACK = 1e-6            # relative slack on the measured current range (rounding)
 
 
-# Why a value is refused: a code for programs, a sentence for people. "note" fields quote
-# the dataset table's own note (its first clause where the sentence goes on).
-REFUSALS = Catalogue("quantities", [
-    Note("outside_range", "rejected", "{condition} is outside the measured {what} range {low}–{high}"),
-    Note("above_breakdown", "rejected", "{condition} is above {high}, where the leakage model ends "
-         "and breakdown begins (readings up to {top})"),
-    Note("data_rejected", "rejected", "{dataset}data rejected: {note}"),
-    Note("no_model", "rejected", "{note}"),
-    Note("no_value", "rejected", "no {label}"),
-    Note("no_value_noted", "rejected", "no {label} ({note})"),
-    Note("no_reading", "rejected", "{note}; no reading at {condition} and {temperature}"),
-    Note("no_point", "rejected", "{note}; no point measured at {condition}"),
-    Note("no_slope", "rejected", "{note}; a temperature coefficient needs a fitted curve"),
-])
+REFUSALS = Catalogue.load("quantities")
 
 
 @dataclass

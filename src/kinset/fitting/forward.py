@@ -25,45 +25,11 @@ import pandas as pd
 from kinset.fitting.batch import (ByDevice, Groups, group_summer, grouped_normal_equations,
                                   inverse_diagonal, solve_stack)
 from kinset.format import si
-from kinset.outcomes import Catalogue, Finding, Note, compose
+from kinset.outcomes import Catalogue, Finding, compose
 from kinset.physics.constants import ZERO_CELSIUS, thermal_voltage
 from kinset.physics.forward import forward_voltage_tempco
 
-# What a forward fit can say about a device, in the order its notes are given: the one
-# reason a device has no usable model comes first, then what was left out of the fit,
-# then what the fit shows, then self-heating.
-NOTES = Catalogue("forward", [
-    Note("no_usable_reading", "rejected", "no usable forward reading"),
-    Note("reversed_leads", "rejected",
-         "every reading has negative voltage and current: reversed leads or sign convention "
-         "(forward readings are positive)"),
-    Note("single_point", "warning",
-         "single point at {current}, cannot see crossing curves; usable only at its own "
-         "current"),
-    Note("two_points", "warning",
-         "two points ({low}, {high}): too few to fit; usable only at their own currents"),
-    Note("not_converged", "rejected",
-         "the fit did not converge: readings do not follow a diode law"),
-    Note("files_disagree", "rejected",
-         "readings in {count} files ({files}) disagree: the fit to all of them is off by "
-         "{rms} rms; one id on two parts? Check the files"),
-    Note("nonpositive_current", "ok", "{count} reading(s) with zero or negative current ignored"),
-    Note("current_limit", "ok", "{count} reading(s) at the current limit near {limit} left out"),
-    Note("voltage_limit", "ok", "{count} reading(s) at the voltage limit left out"),
-    Note("files_combined", "ok", "readings from {count} files combined"),
-    Note("conflicting_positions", "warning", "conflicting tape positions {low:.0f} and {high:.0f}"),
-    Note("poor_fit", "warning",
-         "poor fit: rms residual {rms} (noisy readings or not a single junction)"),
-    Note("unusual_n", "warning", "ideality N = {n:.3g} is outside the usual {low}–{high}"),
-    Note("rs_at_zero", "ok", "series resistance not resolved (RS at 0)"),
-    Note("self_heating_corrected", "ok",
-         "junction temperature corrected for self-heating of up to {heat:.2g} K ({shift} at "
-         "{current})"),
-    Note("self_heating", "warning",
-         "self-heating up to {heat:.2g} K shifts the forward voltage by about {shift} at "
-         "{current}; pulse the test, lower the current, or set 'self_heating: correct' for "
-         "DC readings"),
-])
+NOTES = Catalogue.load("forward")
 
 # Plateau at the top of a sweep: points within this fraction of the device's
 # largest current, spread over more than PLATEAU_V in voltage, sat at a current limit.

@@ -58,7 +58,7 @@ import pandas as pd
 
 from kinset.fitting.batch import ByDevice, Groups
 from kinset.format import si
-from kinset.outcomes import Catalogue, Finding, Note, compose
+from kinset.outcomes import Catalogue, Finding, compose
 from kinset.physics.constants import ZERO_CELSIUS
 from kinset.physics.leakage import generation_shape, leakage_temperature_factor
 
@@ -83,49 +83,7 @@ MAX_PLAUSIBLE_A = 1.0       # [A] a reverse "leakage" reading above this is not 
 FILES_DISAGREE = 3.0         # readings of one id in two files this far apart at one voltage
 PLATEAU_REL = 2e-3          # top readings this close to the largest current sat at a limit
 
-# One note per sentence a leakage row can carry, in the order a row gives them: the
-# reasons a part is rejected (each alone), then the warnings that matter most, then
-# what was done to the readings, what is missing, and the breakdown and temperature.
-NOTES = Catalogue("leakage", [
-    Note("implausible_current", "rejected",
-         "reverse currents up to {current}: not a leakage sweep (columns swapped or a "
-         "wrong unit?)"),
-    Note("no_usable_reading", "rejected",
-         "no usable reading: all {count} have zero or negative voltage or current"),
-    Note("files_disagree", "rejected",
-         "readings in {n_files} files ({files}) disagree: {ratio:.3g}\u00d7 apart at "
-         "{voltage:g} V; one id on two parts? Check the files"),
-    Note("possible_damage", "warning", "leakage {excess}: possible damage"),
-    Note("shorted", "warning",
-         "already {current} at the lowest reading ({voltage:g} V), above the breakdown "
-         "current: shorted or badly damaged"),
-    Note("too_few_voltages", "warning",
-         "{count} distinct voltage(s): too few for a leakage model; values only at and "
-         "between the readings"),
-    Note("signed_readings", "ok", "negative (signed) readings taken as reverse magnitudes"),
-    Note("unusable_readings", "ok",
-         "{count} reading(s) with zero or negative voltage or current not used"),
-    Note("current_limit", "ok",
-         "{count} reading(s) at the current limit {limit} above the first one left out "
-         "(set-points the source did not reach)"),
-    Note("poor_fit", "warning",
-         "poor fit of the leakage model: rms {percent:.2g} % (noisy readings or another "
-         "leakage mechanism)"),
-    Note("ir_below_sweep", "ok",
-         "ir at {voltage:g} V not measured: the lowest reading is {lowest:g} V"),
-    Note("ir_past_breakdown", "ok",
-         "ir at {voltage:g} V not measured: the sweep stopped at {highest:.4g} V in "
-         "breakdown ({current})"),
-    Note("ir_beyond_sweep", "ok",
-         "ir at {voltage:g} V not measured: the sweep ends at {highest:.4g} V"),
-    Note("breakdown_wide_step", "ok",
-         "breakdown between the readings at {low:.4g} V and {high:.4g} V (current "
-         "\u00d7{ratio:.2g}): bv_V interpolated across a wide step"),
-    Note("no_breakdown", "ok", "no breakdown up to {highest:.4g} V ({current} not reached)"),
-    Note("temperature_normalised", "ok",
-         "readings at {when} normalised to {reference:.3g} \u00b0C: {part} divided by "
-         "{factor} ({law})"),
-])
+NOTES = Catalogue.load("leakage")
 
 
 @dataclass

@@ -80,7 +80,7 @@ import pandas as pd
 
 from kinset.fitting.batch import Groups
 from kinset.format import si
-from kinset.outcomes import Catalogue, Finding, Note, compose
+from kinset.outcomes import Catalogue, Finding, compose
 from kinset.physics.recovery import transit_time
 
 # --------------------------------------------------------------------------- outcomes
@@ -91,49 +91,7 @@ from kinset.physics.recovery import transit_time
 REJECTIONS = ("too_few_samples", "never_reverses", "starts_reversed", "no_forward_level",
               "no_zero_crossing", "peak_below_end_level", "ends_before_recovery")
 
-CATALOGUE = Catalogue("recovery", [
-    Note("too_few_samples", "rejected",
-         "only {samples} samples: too few for a recovery waveform{all_rejected}"),
-    Note("never_reverses", "rejected",
-         "the current never reverses beyond the noise (lowest reading {lowest}, noise "
-         "{noise} rms): no recovery in this record{all_rejected}"),
-    Note("starts_reversed", "rejected",
-         "the record starts with the current already reversed ({start}): no forward level "
-         "before the switch (or the sign is inverted: positive current is forward)"
-         "{all_rejected}"),
-    Note("no_forward_level", "rejected",
-         "the record starts at the switch: too few samples of the forward level before the "
-         "current reverses{all_rejected}"),
-    Note("no_zero_crossing", "rejected", "no clear zero crossing of the current{all_rejected}"),
-    Note("peak_below_end_level", "rejected",
-         "the peak reverse current {peak} does not reach the end level {level}{all_rejected}"),
-    Note("ends_before_recovery", "rejected",
-         "the record ends {after_peak} after the peak with the reverse current still at "
-         "{tail}, above the end of recovery ({floor}): ends before recovery{all_rejected}"),
-    Note("decay_cut_short", "warning",
-         "the record ends before the current falls to 25 % of Irrm: the largest sample marks "
-         "the end of the storage phase (ta, tb, tt_s less certain)"),
-    Note("end_past_record", "warning",
-         "the extrapolated end lies {beyond} after the record ends; Qrr counted to the end "
-         "of the record"),
-    Note("coarse_sampling", "warning", "coarse sampling: trr spans only {samples:.1f} samples"),
-    Note("forward_level_differs", "warning",
-         "measured forward level {measured} differs from the test condition {setting} "
-         "({source})"),
-    Note("reverse_current_differs", "warning",
-         "measured storage-phase reverse current {measured} differs from the test condition "
-         "{setting} ({source})"),
-    Note("uneven_time_steps", "ok", "uneven time steps: resampled to {step}"),
-    # The count is printed as a float ("2.0 repeated ..."), as the table always has.
-    Note("repeated_time_stamps", "ok", "{count:.1f} repeated time stamp(s) averaged"),
-    Note("captures_disagree", "rejected",
-         "captures in {count} files ({files}) disagree: trr {low} to {high}; one id on two "
-         "parts? Check the files"),
-    Note("mean_of_captures", "ok", "mean of {count} captures, trr spread {spread}"),
-    Note("mean_of_usable_captures", "ok",
-         "mean of {count} captures ({rejected} rejected), trr spread {spread}"),
-    Note("capture_files", "ok", "files {files}"),
-])
+CATALOGUE = Catalogue.load("recovery")
 
 EDGE_FRACTION = 0.5          # zero-crossing hysteresis: ±50 % of min(IF, reverse peak)
 SMOOTH_FRACTION = 1.0 / 20   # triangle half-width / (t50 − t0) ...

@@ -13,21 +13,8 @@ from dataclasses import dataclass
 from kinset.outcomes import Catalogue, Note
 from kinset.registry import NAMES
 
-REASONS = Catalogue("matching", [
-    *[Note(f"no_{d}_data", "rejected", "no {dataset} data{where}") for d in NAMES],
-    Note("not_positive", "rejected", "{criterion} is not positive, cannot be matched in percent"),
-    # Forms that put a refusal (its own code) under the criterion it concerns.
-    Note("criterion_refused", "rejected", "{criterion}: {detail}"),
-    Note("screen_refused", "rejected", "screen on {criterion}: {detail}"),
-    Note("screen_failed", "rejected", "screen: {criterion} {value} is {side} the limit {limit}"),
-    Note("within_guard_band", "rejected", "{criterion}: tolerance is within the measurement "
-         "guard band ({guard}); the instruments cannot verify it"),
-    Note("no_partner", "rejected", "no other part within every tolerance"),
-    Note("too_few_partners", "rejected", "only {count} other part(s) within every tolerance, "
-         "a set needs {needed}"),
-    Note("partners_used", "rejected", "its compatible parts went into other sets, or cannot "
-         "form a full set with it"),
-])
+REASONS = Catalogue.load("matching", extra=[
+    Note(f"no_{d}_data", "rejected", "no {dataset} data{where}") for d in NAMES])
 
 STAGES = ("data", "screen", "guard", "taken", "no_set")
 _STAGE_OF = {"screen_failed": "screen", "within_guard_band": "guard", "no_partner": "no_set",
