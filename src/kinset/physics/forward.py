@@ -188,10 +188,8 @@ def forward_voltage_tempco(current, saturation_current, ideality, resistance_ser
 
     Parameters
     ----------
-    current : array_like
-        Forward current [A].
-    saturation_current : array_like
-        IS at ``reference_temperature`` [A].
+    current, saturation_current : array_like
+        Forward current, and IS at ``reference_temperature`` [A].
     ideality, resistance_series : array_like
         N [1], RS [Ohm].
     temperature, reference_temperature : array_like
