@@ -13,28 +13,17 @@ import pandas as pd
 import pytest
 
 from kinset.extract import extract_leakage
-from kinset.fitting.leakage import NOTES, LeakageSettings, fit_leakage, temperature_law
+from kinset.fitting.leakage import NOTES, fit_leakage
 from kinset.io.datasets import read_leakage
 from kinset.io.reel import load_reel
 from kinset.outcomes import CATALOGUES, SEVERITY, first_code, has_code, split_codes
 from kinset.physics.constants import ZERO_CELSIUS
+from test_leakage import _settings, _sweep   # the same reference sweeps and settings
 
 ROOT = Path(__file__).resolve().parents[1]
 REFERENCE = ROOT / "tests" / "reference" / "ngspice" / "leakage"
 DEMO = ROOT / "data_demo"
 T25 = 25.0 + ZERO_CELSIUS
-
-
-def _settings(report=(20.0,)):
-    eg, xti, n, law = temperature_law("silicon", 1.11, 3.0)
-    return LeakageSettings(T25, T25, tuple(report), 1e-4, eg, xti, n, law)
-
-
-def _sweep(name: str, device: str | None = None) -> pd.DataFrame:
-    frame = read_leakage(REFERENCE / f"{name}.csv")
-    if device:
-        frame["device"] = device
-    return frame
 
 
 def _codes(table: pd.DataFrame) -> dict[str, list[str]]:
