@@ -21,7 +21,6 @@ from kinset.physics.constants import ZERO_CELSIUS
 from test_leakage import _settings, _sweep   # the same reference sweeps and settings
 
 ROOT = Path(__file__).resolve().parents[1]
-REFERENCE = ROOT / "tests" / "reference" / "ngspice" / "leakage"
 DEMO = ROOT / "data_demo"
 T25 = 25.0 + ZERO_CELSIUS
 
