@@ -98,18 +98,22 @@ def _collect(quantity: str, condition, tables, temperature, index: pd.Index):
 
 
 def _screen(screen: Screen, col, why, code, reasons) -> None:
+    """Each device's reason for failing ``screen``: no value (with its refusal), or beyond a limit."""
     for dev in col.index:
         if why[dev]:
             reasons[dev].append(Reason.wrapped("screen_refused", code[dev], why[dev],
                                                screen.describe(), screen.name))
             continue
         v = col[dev]
-        for limit, side, beyond in ((screen.maximum, "above", v > (screen.maximum or 0)),
-                                    (screen.minimum, "below", v < (screen.minimum or 0))):
-            if limit is not None and beyond:
-                reasons[dev].append(Reason.of(
-                    "screen_failed", screen.name, criterion=screen.describe(), value=si(v, screen.unit),
-                    side=side, limit=si(limit, screen.unit)))
+        failed = []
+        if screen.maximum is not None and v > screen.maximum:
+            failed.append(("above", screen.maximum))
+        if screen.minimum is not None and v < screen.minimum:
+            failed.append(("below", screen.minimum))
+        for side, limit in failed:
+            reasons[dev].append(Reason.of(
+                "screen_failed", screen.name, criterion=screen.describe(),
+                value=si(v, screen.unit), side=side, limit=si(limit, screen.unit)))
 
 
 def evaluate(profile: Profile, tables: dict[str, pd.DataFrame], all_devices,
