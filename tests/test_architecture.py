@@ -186,3 +186,23 @@ def test_celsius_offset_and_si_prefixes_are_defined_once():
                 if {"m", "n", "p"} <= keys:
                     found.append(f"{path.relative_to(SRC)}:{node.lineno} has a prefix table")
     assert not found, "\n".join(found)
+
+
+def test_every_quantity_is_served_by_one_registered_dataset():
+    from kinset.quantities import QUANTITIES
+    served = [q for record in registry.DATASETS for q in record.quantities()]
+    assert sorted(served) == sorted(QUANTITIES)          # each quantity once
+    assert all(record.quantities() for record in registry.DATASETS)
+    # the schema's list of quantities is the same list (a profile can name each of them)
+    import json
+    schema = json.loads((SRC / "schemas" / "application.schema.json").read_text(encoding="utf-8"))
+    enums = [v["enum"] for v in _walk(schema) if isinstance(v, dict) and "enum" in v
+             and "forward_voltage" in v["enum"]]
+    assert enums and all(sorted(e) == sorted(QUANTITIES) for e in enums)
+
+
+def _walk(node):
+    yield node
+    children = node.values() if isinstance(node, dict) else node if isinstance(node, list) else ()
+    for child in children:
+        yield from _walk(child)
