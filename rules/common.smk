@@ -21,6 +21,20 @@ def application_profile(wildcards):
     return PLAN.profile(wildcards.application)
 
 
+def earlier_sets(wildcards):
+    """sets.csv and summary.json of the applications served before this one."""
+    return [f"{d}/{f}" for d in PLAN.earlier(wildcards.application)
+            for f in ("sets.csv", "summary.json")]
+
+
+def ledger_inputs(wildcards):
+    return PLAN.ledger_inputs()
+
+
+def match_options(wildcards):
+    return PLAN.match_options(wildcards.application)
+
+
 def results_folder(wildcards, input):
     return os.path.dirname(input.devices)
 

@@ -27,7 +27,9 @@ rule reel_settings:
     input:
         reel=PLAN.reel_yaml,
     output:
-        f"{OUT}/reel.json",
+        settings=f"{OUT}/reel.json",
+        # which reel folder these results belong to (kinset keep finds its ledger there)
+        owner=f"{OUT}/reel_folder.txt",
     log:
         f"{OUT}/logs/reel_settings.log",
     params:
@@ -41,4 +43,4 @@ rule reel_settings:
     conda:
         "../envs/kinset.yaml"
     shell:
-        "{params.python} -m kinset check-reel --reel {params.reel:q} -o {output} 2> {log}"
+        "{params.python} -m kinset check-reel --reel {params.reel:q} -o {output.settings} 2> {log}"

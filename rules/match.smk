@@ -1,5 +1,8 @@
-# Matching: one job per application profile. A changed profile reruns only this and
-# what follows it; new data reruns it through devices.csv.
+# Matching: one job per application profile, in reel.yaml's priority order: each job
+# reads the sets of the applications before it (their parts are not offered to it) and the
+# reel's ledger (kept sets stay as they are; retired parts are never offered). A changed
+# profile reruns only its own job and the applications after it; new data or a changed
+# ledger reruns them all.
 
 
 rule match:
@@ -10,6 +13,8 @@ rule match:
         # (single forward readings, measured capacitance points)
         tables=PLAN.tables(),
         profile=application_profile,
+        earlier=earlier_sets,
+        ledger=ledger_inputs,
     output:
         sets=f"{OUT}/{{application}}/sets.csv",
         unmatched=f"{OUT}/{{application}}/unmatched.csv",
@@ -22,6 +27,8 @@ rule match:
         version=VERSION,
         results=results_folder,
         out=output_folder,
+        ledger=PLAN.ledger,
+        order=match_options,
     threads: 1
     resources:
         mem_mb=4000,
@@ -30,4 +37,5 @@ rule match:
         "../envs/kinset.yaml"
     shell:
         "{params.python} -m kinset match --results {params.results:q} "
-        "--application {input.profile:q} -o {params.out:q} 2> {log}"
+        "--application {input.profile:q} -o {params.out:q} --ledger {params.ledger:q}"
+        "{params.order} 2> {log}"

@@ -53,33 +53,78 @@ def _cmd_check_reel(args) -> None:
     import json
     from kinset.io.output import write_text
     from kinset.io.reel import load_reel
+    from kinset.io.reel import OWNER_NAME, check_owner, owner_text
     reel = load_reel(args.reel)
     text = json.dumps(reel.settings, indent=2, sort_keys=True) + "\n"
     if args.output:     # the validated settings, for matching and the report
+        results = Path(args.output).parent
+        check_owner(results, reel.folder, reel.id)
         write_text(args.output, text)
+        write_text(results / OWNER_NAME, owner_text(results, reel.folder))
     print(f"{reel.folder / 'reel.yaml'}: valid (reel id {reel.id})", file=sys.stderr)
 
 
 def _cmd_match(args) -> None:
     from kinset.matching.run import run_match, summary_line
-    result = run_match(args.results, args.application, args.output)
-    print(summary_line(result.summary), file=sys.stderr)
+    names = [a.strip() for a in args.application.split(",") if a.strip()]
+    after = list(args.after or [])
+    for name in names:      # in the order given: each after the ones before it
+        out = Path(args.output) if len(names) == 1 else Path(args.output) / Path(name).stem
+        result = run_match(args.results, name, out, args.ledger, after, args.sets_wanted)
+        after.append(out)
+        print(summary_line(result.summary), file=sys.stderr)
+
+
+def _cmd_keep(args) -> None:
+    from kinset.matching.upkeep import keep, parse_sets
+    book, newly = keep(args.results, args.application, parse_sets(args.sets), args.note or "",
+                       args.reel)
+    print(f"{book.path}: kept {args.application} set(s) {', '.join(map(str, newly)) or 'none'}"
+          + ("" if newly else " (already kept)"), file=sys.stderr)
+
+
+def _cmd_retire(args) -> None:
+    from kinset.matching.upkeep import retire
+    e = retire(args.reel, args.device, args.note or "")
+    where = f" ({e.application} set {e.set} is now broken)" if e.set else ""
+    print(f"{Path(args.reel) / 'ledger.csv'}: {e.device} retired{where}", file=sys.stderr)
+
+
+def _cmd_replace(args) -> None:
+    from kinset.matching.upkeep import apply_replacement, replacement
+    table, remaining, book = replacement(args.results, args.application, args.set, args.device,
+                                         args.top, args.reel)
+    _print_table(f"free parts that make {args.application} set {args.set} valid with "
+                 f"{', '.join(remaining)}:", table)
+    if args.apply:
+        new = apply_replacement(book, args.application, args.set, args.device, remaining,
+                                table, args.note or "")
+        print(f"{book.path}: {args.device} retired, {new} kept in {args.application} set "
+              f"{args.set}; rerun the workflow to see the set checked", file=sys.stderr)
+
+
+def _print_table(title: str, table) -> None:
+    import pandas as pd
+    with pd.option_context("display.width", 200, "display.max_columns", 50):
+        print(title)
+        print(table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
 
 
 def _cmd_partners(args) -> None:
-    import pandas as pd
-    from kinset.matching.profile import load_profile
     from kinset.matching.partners import partner_table
+    from kinset.matching.profile import load_profile
     from kinset.matching.run import read_results
+    from kinset.matching.upkeep import unplaced_parts
     tables, devices, reel = read_results(args.results)
-    application = args.application or next(iter(reel.get("applications", [])), None)
+    first = next(iter(reel.get("applications", [])), None)
+    application = args.application or (first["profile"] if isinstance(first, dict) else first)
     if application is None:
         raise InputError("give --application (the reel lists no applications)")
+    free = None if args.all else unplaced_parts(args.results, devices) + [args.device]
     table = partner_table(tables, devices, load_profile(application), args.device,
-                          reel.get("accuracy"), args.top)
-    with pd.option_context("display.width", 200, "display.max_columns", 50):
-        print(f"best partners for {args.device} under {application}:")
-        print(table.to_string(index=False, float_format=lambda v: f"{v:.4g}"))
+                          reel.get("accuracy"), args.top, available=free)
+    _print_table(f"best {'' if args.all else 'free '}partners for {args.device} under "
+                 f"{application}:", table)
 
 
 def _cmd_report(args) -> None:
@@ -140,17 +185,54 @@ def build_parser() -> argparse.ArgumentParser:
     v.add_argument("-o", "--output", help="where to write the settings (JSON)")
     v.set_defaults(func=_cmd_check_reel)
 
-    a = sub.add_parser("match", help="form the matched sets of one application")
+    a = sub.add_parser("match", help="form the matched sets of one application, or of several "
+                       "in priority order")
     a.add_argument("--results", required=True, help="folder holding the extraction tables")
-    a.add_argument("--application", required=True, help="shipped profile name or YAML path")
-    a.add_argument("-o", "--output", required=True, help="output folder (sets.csv, unmatched.csv)")
+    a.add_argument("--application", required=True, help="shipped profile name or YAML path; "
+                   "several, comma-separated, are served in that order (a part goes to one)")
+    a.add_argument("-o", "--output", required=True, help="output folder (sets.csv, "
+                   "unmatched.csv, ...); for several applications, one folder each inside it")
+    a.add_argument("--ledger", help="the reel's ledger.csv (default: the one of the reel "
+                   "folder the results came from)")
+    a.add_argument("--after", nargs="+", help="match folders of applications served before "
+                   "this one: their parts are not offered")
+    a.add_argument("--sets-wanted", type=int, help="stop at this many sets (kept ones count)")
     a.set_defaults(func=_cmd_match)
+
+    kp = sub.add_parser("keep", help="record sets as pulled or built (the reel's ledger.csv)")
+    kp.add_argument("--results", required=True, help="the reel's results folder")
+    kp.add_argument("--application", required=True)
+    kp.add_argument("--sets", required=True, help="set numbers, e.g. 1-20,25")
+    kp.add_argument("--note", help="recorded with each part")
+    kp.add_argument("--reel", help="the reel folder (default: the one the results came from)")
+    kp.set_defaults(func=_cmd_keep)
+
+    rt = sub.add_parser("retire", help="record a part as gone (damaged, lost, used elsewhere)")
+    rt.add_argument("--reel", required=True, help="the reel folder (its ledger.csv)")
+    rt.add_argument("--device", required=True)
+    rt.add_argument("--note", help="why, for the record")
+    rt.set_defaults(func=_cmd_retire)
+
+    rp = sub.add_parser("replace", help="free parts that make a set valid again without one "
+                        "of its parts")
+    rp.add_argument("--results", required=True, help="the reel's results folder")
+    rp.add_argument("--application", required=True)
+    rp.add_argument("--set", required=True, type=int)
+    rp.add_argument("--device", required=True, help="the part to replace")
+    rp.add_argument("--apply", action="store_true", help="retire it and keep the best "
+                    "replacement in its place (one write of the ledger)")
+    rp.add_argument("--top", type=int, default=10)
+    rp.add_argument("--note", help="recorded with the change")
+    rp.add_argument("--reel", help="the reel folder (default: the one the results came from)")
+    rp.set_defaults(func=_cmd_replace)
 
     b = sub.add_parser("partners", help="best partners for one part (a replacement)")
     b.add_argument("--results", required=True)
     b.add_argument("--device", required=True)
     b.add_argument("--application", help="profile (default: the reel's first application)")
     b.add_argument("--top", type=int, default=10)
+    b.add_argument("--all", action="store_true", help="also parts kept, retired or placed in "
+                   "a set (default: only parts in no set and not in the ledger)")
     b.set_defaults(func=_cmd_partners)
 
     o = sub.add_parser("report", help="one application's report.html, models.lib, pick_list.csv")

@@ -10,6 +10,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+import shlex
 import sys
 import zlib
 from dataclasses import dataclass, field
@@ -17,7 +18,8 @@ from pathlib import Path
 
 from kinset import __version__
 from kinset.errors import InputError
-from kinset.io.reel import Reel, load_reel
+from kinset.io.ledger import LEDGER_NAME
+from kinset.io.reel import Application, Reel, check_owner, load_reel
 from kinset.registry import BY_NAME, NAMES
 from kinset.io.profiles import resolve_profile
 
@@ -48,7 +50,9 @@ class Plan:
     results: Path
     max_jobs: int
     buckets: dict[str, dict[str, list[str]]] = field(default_factory=dict)
-    applications: dict[str, str] = field(default_factory=dict)   # output name -> profile path
+    # output name -> profile path, in priority order; and each one's sets_wanted
+    applications: dict[str, str] = field(default_factory=dict)
+    sets_wanted: dict[str, int | None] = field(default_factory=dict)
     # VNA capacitance: job name -> {"devices", "files", "digest"} (see vna_groups), and
     # Touchstone files that capacitance/index.csv does not list.
     vna: dict[str, dict] = field(default_factory=dict)
@@ -115,6 +119,27 @@ class Plan:
     def profile(self, application: str) -> str:
         return self.applications[application]
 
+    def earlier(self, application: str) -> list[str]:
+        """Match folders of the applications served before ``application``."""
+        names = list(self.applications)
+        return [str(self.out / n) for n in names[:names.index(application)]]
+
+    def match_options(self, application: str) -> str:
+        """The options of ``kinset match`` that order this application after the others."""
+        options = ""
+        if self.earlier(application):
+            options += " --after " + " ".join(shlex.quote(f) for f in self.earlier(application))
+        wanted = self.sets_wanted.get(application)
+        return options + (f" --sets-wanted {wanted}" if wanted is not None else "")
+
+    @property
+    def ledger(self) -> str:
+        return str(self.reel.folder / LEDGER_NAME)
+
+    def ledger_inputs(self) -> list[str]:
+        """The ledger, when the reel has one (kinset keep writes it; then matching reruns)."""
+        return [self.ledger] if Path(self.ledger).is_file() else []
+
 
 def make_plan(config: dict) -> Plan:
     """Build the plan from the validated workflow config."""
@@ -128,18 +153,20 @@ def make_plan(config: dict) -> Plan:
             groups.setdefault(bucket_of(f.name, len(files), plan.max_jobs), []).append(str(f))
         plan.buckets[dataset] = groups
     plan.vna, plan.vna_unlisted = vna_groups(reel, plan.max_jobs)
+    check_owner(plan.out, reel.folder, reel.id)
     wanted = config.get("application")
     from_reel = wanted is None         # reel.yaml's list: paths relative to the reel only
     if from_reel:
-        wanted = reel.settings["applications"]
+        wanted = reel.applications
     elif isinstance(wanted, str):
-        wanted = [w.strip() for w in wanted.split(",") if w.strip()]
-    for item in wanted:
-        path = resolve_profile(item, reel.folder, only_base=from_reel)
+        wanted = [Application(w.strip()) for w in wanted.split(",") if w.strip()]
+    for item in wanted:                # in priority order
+        path = resolve_profile(item.profile, reel.folder, only_base=from_reel)
         name = path.stem
-        if name in plan.applications and plan.applications[name] != str(path):
-            raise InputError(f"two application profiles are both named '{name}'", path)
+        if name in plan.applications:
+            raise InputError(f"application '{name}' is listed twice", path)
         plan.applications[name] = str(path)
+        plan.sets_wanted[name] = item.sets_wanted
     if not plan.datasets:
         raise InputError("the reel folder holds no dataset files "
                          f"(expected CSV files in {', '.join(NAMES)}/)", reel.folder)

@@ -42,6 +42,14 @@ def outside_reel(file: str, start: Path, reel: Path) -> str:
 
 
 @dataclass(frozen=True)
+class Application:
+    """One entry of reel.yaml's ``applications``: a profile and its optional quota."""
+
+    profile: str                    # shipped name or YAML path relative to the reel folder
+    sets_wanted: int | None = None  # stop at this many sets (kept ones count)
+
+
+@dataclass(frozen=True)
 class Reel:
     """A validated reel folder."""
 
@@ -73,6 +81,12 @@ class Reel:
         """[1]"""
         return self.settings["xti"]
 
+    @property
+    def applications(self) -> list["Application"]:
+        """reel.yaml's applications, in priority order."""
+        return [Application(e["profile"], e.get("sets_wanted")) if isinstance(e, dict)
+                else Application(e) for e in self.settings.get("applications", [])]
+
     def dataset_files(self, dataset: str) -> list[Path]:
         """The dataset's CSV files, sorted by name (Touchstone files come through the index)."""
         folder = self.folder / dataset
@@ -94,7 +108,8 @@ def load_reel(folder: str | Path) -> Reel:
     if data is not None and not isinstance(data, dict):
         raise InputError("reel.yaml must be a mapping of keys to values", path, 1)
     settings = validate(data, "reel", path, lines)
-    for i, item in enumerate(settings.get("applications", [])):
+    for i, entry in enumerate(settings.get("applications", [])):
+        item = entry["profile"] if isinstance(entry, dict) else entry
         # A profile named by path travels with the reel: it must be inside it.
         # (Profiles from elsewhere are given on the command line.)
         reason = "" if is_profile_name(item) else outside_reel(item, folder, folder)
@@ -115,3 +130,34 @@ def load_reel(folder: str | Path) -> Reel:
         if settings.get(key) is None:
             settings[key] = value
     return Reel(folder=folder, settings=settings)
+
+
+# A results folder belongs to one reel folder: this file in it names the reel folder,
+# relative to the results folder (so moving both together keeps them paired).
+OWNER_NAME = "reel_folder.txt"
+
+
+def results_owner(results: str | Path) -> Path | None:
+    """The reel folder whose results ``results`` holds (None when it does not say)."""
+    marker = Path(results) / OWNER_NAME
+    if not marker.is_file():
+        return None
+    text = marker.read_text(encoding="utf-8").strip()
+    return Path(os.path.normpath(Path(results) / text)) if text else None
+
+
+def owner_text(results: str | Path, reel_folder: str | Path) -> str:
+    """What :data:`OWNER_NAME` holds for ``reel_folder``."""
+    return Path(os.path.relpath(os.path.abspath(reel_folder), os.path.abspath(results))).as_posix() + "\n"
+
+
+def check_owner(results: str | Path, reel_folder: str | Path, reel_id: str) -> None:
+    """Stop when ``results`` holds another reel folder's results under the same reel id."""
+    owner = results_owner(results)
+    if owner is None or (owner.exists() and os.path.samefile(owner, reel_folder)):
+        return
+    raise InputError(f"this results folder holds the results of the reel folder {owner}, "
+                     f"which has the same reel id '{reel_id}' as {reel_folder}. Give this reel "
+                     f"its own id ('reel:' in {Path(reel_folder) / 'reel.yaml'}) or its own "
+                     f"results folder (--config results=PATH); if {owner} was moved to "
+                     f"{reel_folder}, delete {Path(results) / OWNER_NAME}", results)

@@ -233,3 +233,20 @@ def partner_table(tables: dict[str, pd.DataFrame], devices: list[str], profile: 
     columns = ["device", "within", "score"] + [
         f"{d.name}_{w}{column_suffix(d)}" for d in dims for w in (word, "margin")]
     return pd.DataFrame(rows, columns=columns)
+
+
+def broken_set_replacements(c, kept: dict[int, list[str]], size: int, weights,
+                            available: np.ndarray, top: int = 3) -> dict[int, list[dict]]:
+    """For each kept set with fewer than ``size`` members: the best groups of available
+    candidates that make it valid again (``c``: the application's candidates; members that
+    are no candidates any more leave the set without a proposal)."""
+    row = {name: i for i, name in enumerate(c.devices)}
+    out: dict[int, list[dict]] = {}
+    for number, members in kept.items():
+        if len(members) >= size or not members or any(m not in row for m in members):
+            continue
+        p = best_partners(c.z, weights, [row[m] for m in members], top=top, size=size,
+                          available=available)
+        out[number] = [{"devices": [str(c.devices[i]) for i in added], "score": float(cost)}
+                       for added, cost in zip(p.members, p.cost)]
+    return out

@@ -17,8 +17,10 @@ from scipy.spatial import cKDTree
 from kinset.errors import InputError
 from kinset.format import si
 from kinset.io.output import read_result, write_csv, write_text
+from kinset.matching.allocation import Allocation, tape_order
 from kinset.matching.criteria import (column_suffix, effective_tolerance, evaluate,
-                                     instrument_uncertainty, normalise, spread_columns)
+                                     instrument_uncertainty, normalise, spread, spread_columns)
+from kinset.matching.graph import set_cost
 from kinset.matching.profile import Profile, load_profile
 from kinset.matching.reasons import Reason, stage_of
 from kinset.matching.sets import form_sets
@@ -73,6 +75,11 @@ class Candidates:
     accuracy_note: str = ""
     accuracy: dict = field(default_factory=dict)   # reel.yaml accuracy as used
 
+    def subset(self, keep: np.ndarray) -> "Candidates":
+        """The candidates where ``keep`` holds (the same evaluation and tolerances)."""
+        return Candidates(self.evaluation, self.tolerance, self.devices[keep], self.raw[keep],
+                          self.z[keep], self.accuracy_note, self.accuracy)
+
 
 def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
                accuracy: dict | None = None) -> Candidates:
@@ -98,14 +105,45 @@ def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Pro
     return Candidates(ev, eff, cand, raw, z, accuracy_note, accuracy)
 
 
-def set_table(found: list, c: Candidates, dims) -> pd.DataFrame:
-    """sets.csv without positions: each placed part with its set's spreads and margins."""
+def set_table(found: list, c: Candidates, dims, first: int = 1) -> pd.DataFrame:
+    """sets.csv's new sets, without positions: each placed part with its set's spreads and
+    margins; the sets numbered from ``first`` in the order given."""
     rows = []
-    for s, members in enumerate(found, start=1):
+    for s, members in enumerate(found, start=first):
         spreads = spread_columns(c.raw[members], dims, c.tolerance)
-        rows += [{"set": s, "device": c.devices[m], **spreads} for m in members]
-    columns = [f"{d.name}_{w}{column_suffix(d)}" for d in dims for w in ("spread", "margin")]
-    return pd.DataFrame(rows, columns=["set", "device"] + columns)
+        rows += [{"set": s, "device": c.devices[m], **spreads, "state": "new", "check": ""}
+                 for m in members]
+    return pd.DataFrame(rows, columns=set_columns(dims))
+
+
+def set_columns(dims) -> list[str]:
+    spreads = [f"{d.name}_{w}{column_suffix(d)}" for d in dims for w in ("spread", "margin")]
+    return ["set", "device"] + spreads + ["state", "check"]
+
+
+def kept_table(alloc: Allocation, c: Candidates, dims, size: int) -> pd.DataFrame:
+    """sets.csv's kept sets: their members as the ledger holds them, re-checked against
+    the newest data. ``check``: ``ok``; ``broken`` (a member retired and not replaced:
+    fewer than ``size`` members);
+    ``member_refused`` (a member now lacks data or fails a screen);
+    ``out_of_tolerance`` (a spread is now beyond its tolerance after the guard band)."""
+    ev = c.evaluation
+    rows = []
+    for number, members in alloc.kept.items():
+        raw = ev.values.loc[members, [d.name for d in dims]].to_numpy(dtype=float) \
+            if members else np.empty((0, len(dims)))
+        spreads = spread_columns(raw, dims, c.tolerance) if len(members) else {}
+        check = "ok"
+        if len(members) < size:
+            check = "broken"
+        elif any(ev.reasons[m] for m in members):
+            check = "member_refused"
+        elif any(spread(raw[:, j], d) > c.tolerance[d.name] * (1 + 1e-9)
+                 for j, d in enumerate(dims)):
+            check = "out_of_tolerance"
+        rows += [{"set": number, "device": m, **spreads, "state": "kept", "check": check}
+                 for m in members]
+    return pd.DataFrame(rows, columns=set_columns(dims))
 
 
 def no_set_reasons(c: Candidates, placed: set, k: int) -> None:
@@ -156,43 +194,93 @@ def values_table(c: Candidates, profile: Profile, unmatched: pd.DataFrame) -> pd
     return out
 
 
-def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
-          accuracy: dict | None = None) -> MatchResult:
-    """Form the sets of one application; every device ends in sets or unmatched."""
-    c = candidates(tables, devices, profile, accuracy)
-    dims = profile.dimensions
-    weights = np.asarray([d.weight for d in dims])
+def _form(pool: Candidates, profile: Profile, wanted: int | None):
+    """New sets among ``pool``, at most ``wanted`` (the tightest ones: lowest weighted
+    spread); (sets, left out by the quota, bound, method, optimal)."""
     k = profile.set_size
-    if len(c.devices) >= k:
-        result = form_sets(c.z, weights, k, profile.goal)
-        found, bound, method, optimal = result.sets, result.upper_bound, result.method, result.optimal
-    else:
-        found, bound, method, optimal = [], 0, "too few candidates for one set", True
-    sets = set_table(found, c, dims)
+    if len(pool.devices) < k:
+        return [], [], 0, "too few candidates for one set", True
+    weights = np.asarray([d.weight for d in profile.dimensions])
+    result = form_sets(pool.z, weights, k, profile.goal)
+    found = list(result.sets)
+    dropped = []
+    if wanted is not None and len(found) > wanted:
+        cost = set_cost(pool.z, weights, np.asarray(found))
+        order = np.argsort(cost, kind="stable")
+        dropped = [found[i] for i in order[wanted:]]
+        found = [found[i] for i in sorted(order[:wanted])]
+    return found, dropped, result.upper_bound, result.method, result.optimal
+
+
+def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
+          accuracy: dict | None = None, allocation: Allocation | None = None,
+          sets_wanted: int | None = None, positions: dict | None = None) -> MatchResult:
+    """Form the sets of one application; every device ends in sets or unmatched.
+
+    ``allocation`` (:func:`kinset.matching.allocation.allocate`) holds the kept sets,
+    which are re-checked and listed as they are, and the parts not offered; new sets are
+    formed from the rest, at most ``sets_wanted`` in all (kept ones count), and numbered
+    from ``allocation.first_new`` in tape order (``positions``: device -> pocket).
+    """
+    alloc = allocation or Allocation(profile.name)
+    c = candidates(tables, devices, profile, accuracy)
+    ev, dims = c.evaluation, profile.dimensions
+    for dev, reason in alloc.taken.items():
+        if dev in ev.reasons:
+            ev.reasons[dev].insert(0, reason)
+    pool = c.subset(~np.isin(c.devices, list(alloc.kept_devices | set(alloc.taken))))
+    wanted = None if sets_wanted is None else max(0, sets_wanted - len(alloc.kept))
+    found, dropped, bound, method, optimal = _form(pool, profile, wanted)
+    found = tape_order(found, pool.devices, positions or {})
+    sets = pd.concat([kept_table(alloc, c, dims, profile.set_size), set_table(found, pool, dims, alloc.first_new)],
+                     ignore_index=True) if alloc.kept else set_table(found, pool, dims,
+                                                                     alloc.first_new)
     placed = set(sets["device"])
-    no_set_reasons(c, placed, k)
-    unmatched = unmatched_table(c.evaluation, placed)
+    for members in dropped:
+        for m in members:
+            ev.reasons[pool.devices[m]].append(Reason.of("quota_reached", wanted=sets_wanted))
+    no_set_reasons(pool, placed | {pool.devices[m] for s in dropped for m in s},
+                   profile.set_size)
+    unmatched = unmatched_table(ev, placed)
+    summary = _summary(profile, c, pool, alloc, sets, unmatched, (bound, method, optimal))
+    summary["sets_wanted"] = sets_wanted
+    from kinset.matching.partners import broken_set_replacements
+    free = ~np.isin(c.devices, list(alloc.kept_devices | set(alloc.taken)))
+    summary["broken_sets"] = {str(n): r for n, r in broken_set_replacements(
+        c, alloc.kept, profile.set_size, [d.weight for d in dims], free).items()}
+    return MatchResult(profile, sets, unmatched, summary, values_table(c, profile, unmatched))
+
+
+def _summary(profile: Profile, c: Candidates, pool: Candidates, alloc: Allocation,
+             sets: pd.DataFrame, unmatched: pd.DataFrame, solved: tuple) -> dict:
+    bound, method, optimal = solved
+    ev, dims = c.evaluation, profile.dimensions
     counts = unmatched["stage"].value_counts().to_dict()
-    ev = c.evaluation
+    new = sets[sets["state"] == "new"]
     summary = {
         "application": profile.name,
-        "set_size": k,
+        "set_size": profile.set_size,
         "goal": profile.goal,
-        "sets": len(found),
+        "sets": int(sets["set"].nunique()),
+        "kept_sets": len(alloc.kept),
+        "new_sets": int(new["set"].nunique()),
+        "kept_sets_to_check": sorted(int(n) for n in sets.loc[
+            (sets["state"] == "kept") & (sets["check"] != "ok"), "set"].unique()),
         "upper_bound": int(bound),
         "optimal": bool(optimal),
         "method": method,
         "parts_seen": int(len(ev.devices)),
         "parts_with_data": int(len(ev.devices) - counts.get("data", 0)),
         "parts_passed_screen": int(len(c.devices)),
-        "parts_used": int(len(placed)),
+        "parts_offered": int(len(pool.devices)),
+        "parts_used": int(len(sets)),
         "parts_left": {stage: int(n) for stage, n in sorted(counts.items())},
         "guard_band": {d.name: ev.guards[d.name] for d in dims},
         "tolerance_used": {d.name: c.tolerance[d.name] for d in dims},
     }
     if c.accuracy_note:
         summary["note"] = c.accuracy_note
-    return MatchResult(profile, sets, unmatched, summary, values_table(c, profile, unmatched))
+    return summary
 
 
 def _fmt(value: float, dim) -> str:
@@ -212,8 +300,13 @@ def _neighbour_counts(z: np.ndarray, rows: list[int]) -> list[int]:
 
 def summary_line(summary: dict) -> str:
     left = ", ".join(f"{n} at {stage}" for stage, n in summary["parts_left"].items()) or "none"
-    return (f"{summary['application']}: {summary['sets']} sets of {summary['set_size']} "
-            f"(at most {summary['upper_bound']} possible; {summary['method']}), "
+    kept = summary.get("kept_sets", 0)
+    check = summary.get("kept_sets_to_check") or []
+    kept_text = (f"{kept} kept ({len(check)} to check: set {', '.join(map(str, check))}) + "
+                 if check else f"{kept} kept + ") if kept else ""
+    new = summary.get("new_sets", summary["sets"])
+    return (f"{summary['application']}: {kept_text}{new} new sets of {summary['set_size']} "
+            f"(new: at most {summary['upper_bound']} possible; {summary['method']}), "
             f"{summary['parts_used']} of {summary['parts_seen']} parts used; left: {left}")
 
 
@@ -234,14 +327,38 @@ def write_match(result: MatchResult, folder: str | Path, positions: dict | None 
     write_text(folder / "summary.json", json.dumps(result.summary, indent=2, sort_keys=True) + "\n")
 
 
-def run_match(results: str | Path, application: str, out: str | Path) -> MatchResult:
+def run_match(results: str | Path, application: str, out: str | Path,
+              ledger: str | Path | None = None, after: list[str | Path] = (),
+              sets_wanted: int | None = None) -> MatchResult:
+    """One application on a results folder, written to ``out``.
+
+    ``ledger``: the reel's ``ledger.csv`` (default: the one of the reel folder the results
+    came from, if it is known and exists); ``after``: the match folders of the
+    applications before this one, whose placed parts it may not use.
+    """
+    from kinset.io.ledger import check_ledger, read_ledger
+    from kinset.matching.allocation import allocate, earlier_placements
     tables, devices, reel = read_results(results)
     profile = load_profile(application)
-    result = match(tables, devices, profile, reel.get("accuracy"))
+    if ledger is None:
+        ledger = reel_ledger_path(results)
+    book = read_ledger(ledger) if ledger is not None else None
+    if book is not None:
+        check_ledger(book, set(devices), {profile.name: profile.set_size})
     positions = {}
     devfile = Path(results) / "devices.csv"
     if devfile.is_file():
         d = read_result(devfile)
         positions = dict(zip(d["device"].astype(str), d["position"]))
+    alloc = allocate(profile.name, book, earlier_placements(list(after)))
+    result = match(tables, devices, profile, reel.get("accuracy"), alloc, sets_wanted, positions)
     write_match(result, out, positions)
     return result
+
+
+def reel_ledger_path(results: str | Path) -> Path | None:
+    """``ledger.csv`` of the reel folder a results folder belongs to (None if not known)."""
+    from kinset.io.ledger import LEDGER_NAME
+    from kinset.io.reel import results_owner
+    folder = results_owner(results)
+    return None if folder is None else folder / LEDGER_NAME

@@ -155,19 +155,56 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
         ("not placed", len(inp.unmatched)),
     ]
     if "upper_bound" in s:
-        facts.append(("sets at most (bound)", s["upper_bound"]))
+        facts.append(("new sets at most (bound)" if s.get("kept_sets") else
+                      "sets at most (bound)", s["upper_bound"]))
     lis = "".join(f"<li><b>{e(v)}</b>{e(k_)}</li>" for k_, v in facts)
     desc = p.description
+    kept = [("kept", "Kept sets")] if s.get("kept_sets") else []
     nav = "".join(f'<a href="#{a}">{e(t)}</a>' for a, t in (
-        ("pick-list", "Pick list"), ("yield", "Yield"), ("distributions", "Distributions"),
+        *kept, ("pick-list", "Pick list"), ("yield", "Yield"), ("distributions", "Distributions"),
         ("sets", "Sets"), ("unmatched", "Unmatched parts"), ("models", "SPICE models"),
         ("provenance", "Provenance"), ("cautions", "Cautions")))
     return (f"<header><h1>{e(title)}: matched sets from reel {e(inp.reel_id)}</h1>"
             + (f'<p class="muted">{e(desc)}</p>' if desc else "")
-            + f'<p class="lead">{e(n_sets)} set(s) of {e(k)} parts. Pull the {len(picks)} '
-              "parts of the pick list in tape order and put each into the bin of its set; "
-              "why every other part was left out is listed under Unmatched parts.</p>"
+            + f'<p class="lead">{e(n_sets)} set(s) of {e(k)} parts'
+            + (f", {e(s.get('kept_sets'))} of them kept from earlier (listed apart)"
+               if s.get("kept_sets") else "")
+            + f". Pull the {len(picks)} parts of the pick list in tape order and put each "
+              "into the bin of its set; why every other part was left out is listed under "
+              "Unmatched parts.</p>"
             + f'<ul class="facts">{lis}</ul><nav>{nav}</nav></header>')
+
+
+CHECKS = {
+    "ok": "meets every tolerance with the newest data",
+    "broken": "a member was retired: replace it (kinset replace)",
+    "member_refused": "a member now lacks data or fails a screen",
+    "out_of_tolerance": "a spread is now beyond its tolerance",
+}
+
+
+def _kept_section(inp: ReportInputs) -> str:
+    """The kept sets (the ledger), each re-checked against the newest data; the broken
+    ones with the free parts that would make them valid again."""
+    sets = inp.sets
+    if "state" not in sets or not (sets["state"].astype(str) == "kept").any():
+        return ""
+    kept = sets[sets["state"].astype(str) == "kept"]
+    proposals = inp.summary.get("broken_sets", {}) or {}
+    rows = []
+    for number, block in kept.groupby("set", sort=True):
+        check = str(block["check"].iloc[0])
+        offer = "; ".join(", ".join(p["devices"]) for p in proposals.get(str(number), []))
+        rows.append([e(number), ", ".join(f'<span class="id">{e(d)}</span>'
+                                          for d in block["device"]),
+                     e(CHECKS.get(check, check)), e(offer or "\u2013")])
+    to_check = [r for r in rows if r[2] != e(CHECKS["ok"])]
+    return ('<section id="kept"><h2>Kept sets</h2>'
+            f"<p>{len(rows)} set(s) recorded as pulled or built (the reel's ledger.csv); kinset "
+            f"never changes them, and re-checks each against the newest data: "
+            f"{len(to_check)} need a look.</p>"
+            + _table(["set", "members", "check", "free parts that complete it (best first)"],
+                     rows, {0}, "kept-sets") + "</section>")
 
 
 def _pick_section(picks: pd.DataFrame, names: dict[str, str]) -> str:
@@ -551,6 +588,7 @@ def render_page(inp: ReportInputs, names: dict[str, str], picks: pd.DataFrame, l
     title = f"{p.title} \u2013 reel {inp.reel_id} \u2013 kinset report"
     body = "\n".join([
         _header(inp, picks),
+        _kept_section(inp),
         _pick_section(picks, names),
         _yield_section(inp),
         _distributions_section(inp),

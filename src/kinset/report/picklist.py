@@ -38,7 +38,10 @@ def position_text(value) -> str:
 
 
 def pick_list(sets: pd.DataFrame) -> pd.DataFrame:
-    """The pick list of a sets table (``set, device, position`` columns)."""
+    """The pick list of a sets table (``set, device, position`` columns): its new sets only
+    (kept sets were pulled already and are listed apart)."""
+    if "state" in sets:
+        sets = sets[sets["state"].astype(str) != "kept"]
     if not len(sets):
         return pd.DataFrame(columns=COLUMNS)
     pos = sets["position"] if "position" in sets else pd.Series(np.nan, index=sets.index)
