@@ -78,7 +78,9 @@ def outputs(work: Path, intermediates: bool = True) -> dict[str, str]:
     by the path it was read from.
     """
     base = work / "results" / "demo-0412"
-    skip = {"logs"} | (set() if intermediates else {"parsed"})
+    # with intermediates=False the runs may come from copies of the reel in other folders:
+    # reel_folder.txt, which names the reel folder the results belong to, differs then
+    skip = {"logs"} | (set() if intermediates else {"parsed", "reel_folder.txt"})
     files = [p for p in sorted(base.rglob("*")) if p.is_file() and not skip & set(p.parts)
              and not (p.name.startswith(".") and p.name.endswith(".tmp"))]   # a writer's temporary
     return {p.relative_to(base).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()

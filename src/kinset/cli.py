@@ -144,6 +144,36 @@ def _cmd_demo(args) -> None:
     print(f"demo reel written to {out}", file=sys.stderr)
 
 
+def _ledger_parsers(sub) -> None:
+    """keep, retire, replace: the commands that write the reel's ledger.csv."""
+    kp = sub.add_parser("keep", help="record sets as pulled or built (the reel's ledger.csv)")
+    kp.add_argument("--results", required=True, help="the reel's results folder")
+    kp.add_argument("--application", required=True)
+    kp.add_argument("--sets", required=True, help="set numbers, e.g. 1-20,25")
+    kp.add_argument("--note", help="recorded with each part")
+    kp.add_argument("--reel", help="the reel folder (default: the one the results came from)")
+    kp.set_defaults(func=_cmd_keep)
+
+    rt = sub.add_parser("retire", help="record a part as gone (damaged, lost, used elsewhere)")
+    rt.add_argument("--reel", required=True, help="the reel folder (its ledger.csv)")
+    rt.add_argument("--device", required=True)
+    rt.add_argument("--note", help="why, for the record")
+    rt.set_defaults(func=_cmd_retire)
+
+    rp = sub.add_parser("replace", help="free parts that make a set valid again without one "
+                        "of its parts")
+    rp.add_argument("--results", required=True, help="the reel's results folder")
+    rp.add_argument("--application", required=True)
+    rp.add_argument("--set", required=True, type=int)
+    rp.add_argument("--device", required=True, help="the part to replace")
+    rp.add_argument("--apply", action="store_true", help="retire it and keep the best "
+                    "replacement in its place (one write of the ledger)")
+    rp.add_argument("--top", type=int, default=10)
+    rp.add_argument("--note", help="recorded with the change")
+    rp.add_argument("--reel", help="the reel folder (default: the one the results came from)")
+    rp.set_defaults(func=_cmd_replace)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="kinset", description="Characterise a reel of diodes "
                                 "and form matched sets.")
@@ -199,32 +229,7 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--sets-wanted", type=int, help="stop at this many sets (kept ones count)")
     a.set_defaults(func=_cmd_match)
 
-    kp = sub.add_parser("keep", help="record sets as pulled or built (the reel's ledger.csv)")
-    kp.add_argument("--results", required=True, help="the reel's results folder")
-    kp.add_argument("--application", required=True)
-    kp.add_argument("--sets", required=True, help="set numbers, e.g. 1-20,25")
-    kp.add_argument("--note", help="recorded with each part")
-    kp.add_argument("--reel", help="the reel folder (default: the one the results came from)")
-    kp.set_defaults(func=_cmd_keep)
-
-    rt = sub.add_parser("retire", help="record a part as gone (damaged, lost, used elsewhere)")
-    rt.add_argument("--reel", required=True, help="the reel folder (its ledger.csv)")
-    rt.add_argument("--device", required=True)
-    rt.add_argument("--note", help="why, for the record")
-    rt.set_defaults(func=_cmd_retire)
-
-    rp = sub.add_parser("replace", help="free parts that make a set valid again without one "
-                        "of its parts")
-    rp.add_argument("--results", required=True, help="the reel's results folder")
-    rp.add_argument("--application", required=True)
-    rp.add_argument("--set", required=True, type=int)
-    rp.add_argument("--device", required=True, help="the part to replace")
-    rp.add_argument("--apply", action="store_true", help="retire it and keep the best "
-                    "replacement in its place (one write of the ledger)")
-    rp.add_argument("--top", type=int, default=10)
-    rp.add_argument("--note", help="recorded with the change")
-    rp.add_argument("--reel", help="the reel folder (default: the one the results came from)")
-    rp.set_defaults(func=_cmd_replace)
+    _ledger_parsers(sub)
 
     b = sub.add_parser("partners", help="best partners for one part (a replacement)")
     b.add_argument("--results", required=True)
