@@ -6,7 +6,7 @@ from pathlib import Path
 import pytest
 
 from kinset.errors import InputError
-from kinset.matching.criteria import _accuracy_bound
+from kinset.matching.criteria import accuracy_guard
 from kinset.io.profiles import shipped_profiles
 from kinset.matching.profile import load_profile
 
@@ -75,6 +75,6 @@ def test_guard_band_rectangular_rule():
     prof = load_profile("ring_mixer_quad")
     dim = prof.dimensions[0]
     accuracy = {"voltage": {"gain": 1e-4, "offset_V": 1e-4}}
-    guard = _accuracy_bound(prof, dim, 0.6, accuracy)
+    guard = accuracy_guard(prof, dim, 0.6, accuracy)
     assert guard == pytest.approx(2 * math.sqrt(2) * 160e-6 / math.sqrt(3), rel=1e-12)
     assert guard == pytest.approx(261.3e-6, abs=0.05e-6)

@@ -63,7 +63,7 @@ def instrument_uncertainty(quantity: str, values, accuracy: dict) -> np.ndarray:
     return instrument_accuracy(quantity, values, accuracy) / SQRT3
 
 
-def _accuracy_bound(profile: Profile, dim: Dimension | Screen, typical: float,
+def accuracy_guard(profile: Profile, dim: Dimension | Screen, typical: float,
                     accuracy: dict) -> float:
     """Guard band of a tolerance: twice the standard uncertainty of a difference.
 
@@ -139,7 +139,7 @@ def evaluate(profile: Profile, tables: dict[str, pd.DataFrame], all_devices,
                                                dim.describe(), dim.name))
         finite = col[np.isfinite(col)]
         typical[dim.name] = float(finite.median()) if len(finite) else math.nan
-        guards[dim.name] = _accuracy_bound(profile, dim, typical[dim.name], accuracy)
+        guards[dim.name] = accuracy_guard(profile, dim, typical[dim.name], accuracy)
     for screen in profile.screens:
         col, why, code = _collect(screen.quantity, screen.condition, tables, t, index)
         screened[screen.name] = col

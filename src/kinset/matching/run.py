@@ -18,8 +18,9 @@ from kinset.errors import InputError
 from kinset.format import si
 from kinset.io.output import read_result, write_csv, write_text
 from kinset.matching.allocation import Allocation, tape_order
-from kinset.matching.criteria import (column_suffix, effective_tolerance, evaluate,
-                                     instrument_uncertainty, normalise, spread, spread_columns)
+from kinset.matching.criteria import (accuracy_guard, column_suffix, effective_tolerance,
+                                     evaluate, instrument_uncertainty, normalise, spread,
+                                     spread_columns)
 from kinset.matching.graph import set_cost
 from kinset.matching.profile import Profile, load_profile
 from kinset.matching.reasons import Reason, stage_of
@@ -121,24 +122,39 @@ def set_columns(dims) -> list[str]:
     return ["set", "device"] + spreads + ["state", "check"]
 
 
-def kept_table(alloc: Allocation, c: Candidates, dims, size: int) -> pd.DataFrame:
+def kept_tolerance(profile: Profile, raw: np.ndarray, accuracy: dict) -> dict:
+    """Each dimension's tolerance after a guard band taken at the set's own values (the
+    median of its members), not the reel's: a kept set is judged by its own readings, so
+    data of other parts never move its margins."""
+    out = {}
+    for j, d in enumerate(profile.dimensions):
+        finite = raw[np.isfinite(raw[:, j]), j]
+        typical = float(np.median(finite)) if len(finite) else math.nan
+        out[d.name] = effective_tolerance(d, accuracy_guard(profile, d, typical, accuracy),
+                                          typical)
+    return out
+
+
+def kept_table(alloc: Allocation, c: Candidates, profile: Profile) -> pd.DataFrame:
     """sets.csv's kept sets: their members as the ledger holds them, re-checked against
-    the newest data. ``check``: ``ok``; ``broken`` (a member retired and not replaced:
-    fewer than ``size`` members);
+    the newest data (tolerances after a guard band at the set's own values,
+    :func:`kept_tolerance`). ``check``: ``ok``; ``broken`` (a member retired and not
+    replaced: fewer than the profile's set size);
     ``member_refused`` (a member now lacks data or fails a screen);
     ``out_of_tolerance`` (a spread is now beyond its tolerance after the guard band)."""
-    ev = c.evaluation
+    ev, dims = c.evaluation, profile.dimensions
     rows = []
     for number, members in alloc.kept.items():
         raw = ev.values.loc[members, [d.name for d in dims]].to_numpy(dtype=float) \
             if members else np.empty((0, len(dims)))
-        spreads = spread_columns(raw, dims, c.tolerance) if len(members) else {}
+        tolerance = kept_tolerance(profile, raw, c.accuracy)
+        spreads = spread_columns(raw, dims, tolerance) if len(members) else {}
         check = "ok"
-        if len(members) < size:
+        if len(members) < profile.set_size:
             check = "broken"
         elif any(ev.reasons[m] for m in members):
             check = "member_refused"
-        elif any(spread(raw[:, j], d) > c.tolerance[d.name] * (1 + 1e-9)
+        elif any(spread(raw[:, j], d) > tolerance[d.name] * (1 + 1e-9)
                  for j, d in enumerate(dims)):
             check = "out_of_tolerance"
         rows += [{"set": number, "device": m, **spreads, "state": "kept", "check": check}
@@ -232,7 +248,7 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
     wanted = None if sets_wanted is None else max(0, sets_wanted - len(alloc.kept))
     found, dropped, bound, method, optimal = _form(pool, profile, wanted)
     found = tape_order(found, pool.devices, positions or {})
-    sets = pd.concat([kept_table(alloc, c, dims, profile.set_size), set_table(found, pool, dims, alloc.first_new)],
+    sets = pd.concat([kept_table(alloc, c, profile), set_table(found, pool, dims, alloc.first_new)],
                      ignore_index=True) if alloc.kept else set_table(found, pool, dims,
                                                                      alloc.first_new)
     placed = set(sets["device"])
