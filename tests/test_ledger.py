@@ -14,13 +14,12 @@ import subprocess
 import sys
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 import pytest
 
 from kinset.cli import main
 from kinset.errors import InputError
-from kinset.io.ledger import check_ledger, read_ledger
+from kinset.io.ledger import read_ledger
 from kinset.io.reel import OWNER_NAME, owner_text
 from kinset.matching.criteria import spread
 from kinset.matching.run import candidates, read_results, run_match
