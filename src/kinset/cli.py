@@ -94,8 +94,12 @@ def _cmd_replace(args) -> None:
     from kinset.matching.upkeep import apply_replacement, replacement
     table, remaining, book = replacement(args.results, args.application, args.set, args.device,
                                          args.top, args.reel)
-    _print_table(f"free parts that make {args.application} set {args.set} valid with "
-                 f"{', '.join(remaining)}:", table)
+    if not len(table):
+        print(f"no free part makes {args.application} set {args.set} valid with "
+              f"{', '.join(remaining)}", file=sys.stderr)
+    else:
+        _print_table(f"free parts that make {args.application} set {args.set} valid with "
+                     f"{', '.join(remaining)}:", table)
     if args.apply:
         new = apply_replacement(book, args.application, args.set, args.device, remaining,
                                 table, args.note or "")

@@ -192,7 +192,8 @@ def _describe(v, w, kept, members):
 
 def partner_table(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
                   members, accuracy: dict | None = None, top: int = 10,
-                  size: int | None = None, available=None) -> pd.DataFrame:
+                  size: int | None = None, available=None,
+                  within_only: bool = False) -> pd.DataFrame:
     """The parts closest to ``members`` under ``profile``: a replacement for a failed part.
 
     ``members`` is one device name (its best single partners are listed) or the names
@@ -202,7 +203,8 @@ def partner_table(tables: dict[str, pd.DataFrame], devices: list[str], profile: 
     weighted normalised spread of the completed set (``score``). Each criterion's spread
     (``difference`` for a pair) and margin (tolerance after the guard band minus the
     spread) is listed, and ``within`` says whether the set fits every tolerance. Groups
-    of several parts are listed only when they fit.
+    of several parts, and every completion with ``within_only``, are listed only when
+    they fit.
     """
     members = [members] if isinstance(members, str) else list(members)
     c = candidates(tables, devices, profile, accuracy)
@@ -225,7 +227,7 @@ def partner_table(tables: dict[str, pd.DataFrame], devices: list[str], profile: 
         mask = np.isin(c.devices, list(available))
     dims = profile.dimensions
     p = best_partners(c.z, [d.weight for d in dims], [row[m] for m in members], top=top,
-                      size=size, available=mask, within_only=False)
+                      size=size, available=mask, within_only=within_only)
     word = "difference" if p.members.shape[1] + len(members) == 2 else "spread"
     rows = [{"device": ", ".join(c.devices[added]), "within": bool(ok), "score": float(cost),
              **spread_columns(c.raw[np.concatenate([p.given, added])], dims, c.tolerance, word)}

@@ -147,7 +147,7 @@ def replacement(results: str | Path, application: str, number: int, device: str,
     profile = load_profile(_profile_of(results, application))
     free = free_parts(results, application, book, devices)
     table = partner_table(tables, devices, profile, remaining, settings.get("accuracy"), top,
-                          size=profile.set_size, available=free)
+                          size=profile.set_size, available=free, within_only=True)
     return table, remaining, book
 
 
