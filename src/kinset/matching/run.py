@@ -211,8 +211,13 @@ def values_table(c: Candidates, profile: Profile, unmatched: pd.DataFrame) -> pd
 
 
 def _form(pool: Candidates, profile: Profile, wanted: int | None):
-    """New sets among ``pool``, at most ``wanted`` (the tightest ones: lowest weighted
-    spread); (sets, left out by the quota, bound, method, optimal)."""
+    """New sets among ``pool``; (sets, left out by the quota, bound, method, optimal).
+
+    With a quota (``wanted``) the sets kept are those with the least to spare (the
+    largest weighted spread): every one of them meets the tolerances, and the parts that
+    match each other most closely stay free for the applications after this one, which
+    may need them most (quads, more criteria).
+    """
     k = profile.set_size
     if len(pool.devices) < k:
         return [], [], 0, "too few candidates for one set", True
@@ -222,7 +227,7 @@ def _form(pool: Candidates, profile: Profile, wanted: int | None):
     dropped = []
     if wanted is not None and len(found) > wanted:
         cost = set_cost(pool.z, weights, np.asarray(found))
-        order = np.argsort(cost, kind="stable")
+        order = np.argsort(-cost, kind="stable")
         dropped = [found[i] for i in order[wanted:]]
         found = [found[i] for i in sorted(order[:wanted])]
     return found, dropped, result.upper_bound, result.method, result.optimal
@@ -244,13 +249,14 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
     for dev, reason in alloc.taken.items():
         if dev in ev.reasons:
             ev.reasons[dev].insert(0, reason)
-    pool = c.subset(~np.isin(c.devices, list(alloc.kept_devices | set(alloc.taken))))
+    offered = ~np.isin(c.devices, list(alloc.kept_devices | set(alloc.taken)))
+    pool = c.subset(offered)
     wanted = None if sets_wanted is None else max(0, sets_wanted - len(alloc.kept))
     found, dropped, bound, method, optimal = _form(pool, profile, wanted)
     found = tape_order(found, pool.devices, positions or {})
-    sets = pd.concat([kept_table(alloc, c, profile), set_table(found, pool, dims, alloc.first_new)],
-                     ignore_index=True) if alloc.kept else set_table(found, pool, dims,
-                                                                     alloc.first_new)
+    sets = set_table(found, pool, dims, alloc.first_new)
+    if alloc.kept:
+        sets = pd.concat([kept_table(alloc, c, profile), sets], ignore_index=True)
     placed = set(sets["device"])
     for members in dropped:
         for m in members:
@@ -260,10 +266,9 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
     unmatched = unmatched_table(ev, placed)
     summary = _summary(profile, c, pool, alloc, sets, unmatched, (bound, method, optimal))
     summary["sets_wanted"] = sets_wanted
-    from kinset.matching.partners import broken_set_replacements
-    free = ~np.isin(c.devices, list(alloc.kept_devices | set(alloc.taken)))
+    from kinset.matching.partners import broken_set_replacements   # partners imports run
     summary["broken_sets"] = {str(n): r for n, r in broken_set_replacements(
-        c, alloc.kept, profile.set_size, [d.weight for d in dims], free).items()}
+        c, alloc.kept, profile.set_size, [d.weight for d in dims], offered).items()}
     return MatchResult(profile, sets, unmatched, summary, values_table(c, profile, unmatched))
 
 
