@@ -7,6 +7,10 @@ The references are outside the matcher:
   listed by brute force (itertools.combinations, validity by the contract's definition
   of a spread, max - min, against the effective tolerance) and solved by HiGHS through
   scipy.optimize.milp (``max_packing`` of test_match);
+* forward voltages: the closed form V = N·Vt·ln(1 + I/IS) + I·RS (Shockley's law with a
+  series resistance, solved for V), Vt = kT/q from scipy.constants (CODATA);
+* the guard band: JCGM 100:2008 §4.3.7 (u = a/√3 for a specification ±a) and
+  JCGM 106:2012 §8 (acceptance: spread ≤ T − 2·u(difference), u(difference) = √2·u);
 * over a history: a plain model of what the ledger must hold, kept by the test itself
   from the operations it performs (the contract's "Over time: the ledger").
 
@@ -18,6 +22,7 @@ from __future__ import annotations
 import functools
 import itertools
 import json
+import math
 import re
 import tempfile
 from pathlib import Path
@@ -25,6 +30,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+import scipy.constants as sc
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
@@ -35,8 +41,9 @@ from kinset.io.reel import OWNER_NAME, owner_text
 from kinset.matching import upkeep
 from kinset.matching.allocation import allocate
 from kinset.matching.run import candidates, match, run_match
+from kinset.physics.forward import voltage_from_current
 
-from test_match import max_packing, profile, tight_batch
+from test_match import CURRENTS, T25, max_packing, profile, tight_batch
 
 PAIR = (2, 1.0e-3)        # set size, forward-voltage tolerance [V]
 QUAD = (4, 1.2e-3)
@@ -346,3 +353,74 @@ def test_replacing_a_part_already_replaced_is_refused_in_words(tmp_path):
     rematch(reel, results)
     with pytest.raises(InputError, match=gone):
         upkeep.replacement(results, "p2", 1, gone)
+
+
+# ------------------------------------------------------------------ 4. replacements
+
+
+def closed_form_volts(results: Path) -> pd.DataFrame:
+    """Each part's forward voltage at the profile currents from its fitted IS, N, RS:
+    V = N·Vt·ln(1 + I/IS) + I·RS with Vt = kT/q (scipy.constants, CODATA), checked
+    against kinset.physics.forward.voltage_from_current."""
+    t = read_result(results / "forward.csv").set_index("device")
+    i = np.asarray(CURRENTS)[None, :]
+    i_s, n, rs = (t[c].to_numpy()[:, None] for c in ("is_A", "n", "rs_ohm"))
+    v = n * (sc.k * T25 / sc.e) * np.log1p(i / i_s) + i * rs
+    np.testing.assert_allclose(voltage_from_current(i, i_s, n, rs, T25), v, rtol=1e-9)
+    return pd.DataFrame(v, index=t.index)
+
+
+def guarded_limit(volts: pd.DataFrame, tolerance: float) -> np.ndarray:
+    """The tolerance after the guard band at each current: spread ≤ T − 2·√2·a/√3, a the
+    voltmeter's ±(gain·|V| + offset) at the reel's median voltage (JCGM 100:2008 §4.3.7,
+    JCGM 106:2012 §8)."""
+    spec = ACCURACY["voltage"]
+    a = spec["gain"] * np.abs(volts.median(axis=0).to_numpy()) + spec["offset_V"]
+    return tolerance - 2 * math.sqrt(2) * a / math.sqrt(3)
+
+
+def test_replacements_are_free_parts_that_make_the_set_valid_by_the_closed_form(tmp_path):
+    # Reference: forward voltages recomputed from the fitted parameters by the closed
+    # form (scipy.constants for Vt), the guard band by JCGM 100/106, the free parts by
+    # the contract (not kept, not retired, not placed by an earlier application).
+    reel, results = write_reel(tmp_path, 40, guard="accuracy")
+    out = rematch(reel, results)
+    p2 = sorted(set(out["p2"].sets["set"]))
+    upkeep.keep(results, "p2", p2[:len(p2) // 2])        # the rest stay placed, not kept
+    p4 = out["p4"].sets
+    number = int(p4["set"].min())
+    members = list(p4.loc[p4["set"] == number, "device"])
+    volts = closed_form_volts(results)
+    tolerance = APPS["p4"][1]
+    limit = guarded_limit(volts, tolerance)
+
+    def valid(parts, limit=limit):
+        v = volts.loc[parts].to_numpy()
+        return bool(np.all(v.max(axis=0) - v.min(axis=0) <= limit * (1 + 1e-9)))
+
+    # retire a part that would have served: the first free one valid with the others
+    spare = next(d for d in volts.index if d not in set(out["p2"].sets["device"])
+                 and d not in members and valid(members[1:] + [d]))
+    upkeep.retire(reel, spare)
+    base, _ = upkeep.keep(results, "p4", [number])
+    seen_valid, guarded_out, withheld = 0, 0, set()
+    for gone in members:
+        write_ledger(base.with_rows([Entry(gone, "p4", number, "retired", "2024-01-02")]))
+        out = rematch(reel, results)
+        book = read_ledger(reel / "ledger.csv")
+        taken = set(book.by_device()) | set(out["p2"].sets["device"])
+        free = [d for d in volts.index if d not in taken]
+        table, remaining, _ = upkeep.replacement(results, "p4", number, gone, top=len(volts))
+        assert sorted(remaining) == sorted(set(members) - {gone})
+        assert sorted(table["device"]) == sorted(free)       # every free part, ranked
+        for dev, within in zip(table["device"], table["within"]):
+            assert bool(within) == valid(remaining + [dev]), dev
+            guarded_out += valid(remaining + [dev], tolerance) and not within
+        seen_valid += int(table["within"].sum())
+        assert not any(d in taken for d in table["device"])
+        for d in taken - set(members):
+            if valid(remaining + [d]):
+                state = book.by_device()[d].state if d in book.by_device() else "placed"
+                withheld.add(state)
+    assert seen_valid > 0 and guarded_out > 0   # the guard band decided some proposals
+    assert withheld == {"kept", "retired", "placed"}    # each rule kept a part that would fit
