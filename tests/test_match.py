@@ -62,13 +62,20 @@ def milp_optimum(volts: np.ndarray, size: int, tol: float) -> int:
     # every valid set is a k-subset of some maximal clique (Bron–Kerbosch, networkx)
     cands = sorted({tuple(sorted(sub)) for c in nx.find_cliques(g) if len(c) >= size
                     for sub in itertools.combinations(c, size)})
-    if not cands:
+    return max_packing(len(volts), cands)
+
+
+def max_packing(n: int, sets) -> int:
+    """The most pairwise-disjoint sets among ``sets`` (tuples of rows 0..n-1): maximum
+    set packing as a 0/1 programme solved by HiGHS (scipy.optimize.milp)."""
+    sets = list(sets)
+    if not sets:
         return 0
-    a = lil_matrix((len(volts), len(cands)))
-    for j, c in enumerate(cands):
+    a = lil_matrix((n, len(sets)))
+    for j, c in enumerate(sets):
         for m in c:
             a[m, j] = 1
-    res = milp(-np.ones(len(cands)), integrality=np.ones(len(cands)), bounds=Bounds(0, 1),
+    res = milp(-np.ones(len(sets)), integrality=np.ones(len(sets)), bounds=Bounds(0, 1),
                constraints=LinearConstraint(a.tocsr(), 0, 1))
     return int(round(-res.fun))
 
