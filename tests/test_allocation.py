@@ -265,7 +265,7 @@ def replace_one(reel, results, model, out, pick) -> None:
                for number, rows in book.kept_sets(name).items() for e in rows
                if live[(name, number)] - {e.device}          # someone left to match, and
                and (e.state == "kept" or len(live[(name, number)]) < APPS[name][0])]
-    # (a retired member of a set already made whole again: see the xfail test below)
+    # (a retired member of a set already made whole again: see the test below)
     for name, number, device in options[pick % max(len(options), 1):] + options:
         table, remaining, book = upkeep.replacement(results, name, number, device)
         if table["within"].any():
@@ -333,11 +333,6 @@ def test_a_history_of_keep_retire_replace_and_new_parts_keeps_the_ledger_rules(o
             check_history_step(reel, devices, model, out, before)
 
 
-@pytest.mark.xfail(strict=True, raises=ValueError, reason=(
-    "bug: replacement() for a retired member of a kept set that is already whole again "
-    "(the part was replaced before) passes size == len(remaining) to best_partners, which "
-    "raises a bare ValueError; kinset replace (cli.main catches InputError only) ends in a "
-    "traceback instead of an error in words"))
 def test_replacing_a_part_already_replaced_is_refused_in_words(tmp_path):
     # Reference: the contract (replace lists parts that make set S valid again; every
     # problem with an input is an error naming it).
@@ -412,11 +407,13 @@ def test_replacements_are_free_parts_that_make_the_set_valid_by_the_closed_form(
         free = [d for d in volts.index if d not in taken]
         table, remaining, _ = upkeep.replacement(results, "p4", number, gone, top=len(volts))
         assert sorted(remaining) == sorted(set(members) - {gone})
-        assert sorted(table["device"]) == sorted(free)       # every free part, ranked
-        for dev, within in zip(table["device"], table["within"]):
-            assert bool(within) == valid(remaining + [dev]), dev
-            guarded_out += valid(remaining + [dev], tolerance) and not within
-        seen_valid += int(table["within"].sum())
+        # exactly the free parts whose set is valid (only those are proposed), best first
+        assert sorted(table["device"]) == sorted(d for d in free if valid(remaining + [d]))
+        assert table["within"].astype(bool).all()
+        assert list(table["score"]) == sorted(table["score"])
+        guarded_out += sum(valid(remaining + [d], tolerance) and not valid(remaining + [d])
+                           for d in free)
+        seen_valid += len(table)
         assert not any(d in taken for d in table["device"])
         for d in taken - set(members):
             if valid(remaining + [d]):

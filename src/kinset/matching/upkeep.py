@@ -145,6 +145,9 @@ def replacement(results: str | Path, application: str, number: int, device: str,
         raise InputError(f"{application} set {number} has no member left to match against")
     tables, devices, settings = read_results(results)
     profile = load_profile(_profile_of(results, application))
+    if len(remaining) >= profile.set_size:
+        raise InputError(f"{application} set {number} is whole without {device} (its members: "
+                         f"{', '.join(remaining)}); nothing to replace", column="--device")
     free = free_parts(results, application, book, devices)
     table = partner_table(tables, devices, profile, remaining, settings.get("accuracy"), top,
                           size=profile.set_size, available=free, within_only=True)
