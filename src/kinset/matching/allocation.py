@@ -11,13 +11,16 @@ tape order of their first part, so the same inputs always give the same numbers.
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from kinset.errors import InputError
 from kinset.io.ledger import Ledger
+from kinset.io.output import read_result
 from kinset.matching.reasons import Reason
 
 
@@ -43,10 +46,6 @@ class Allocation:
 
 def earlier_placements(folders: list[str | Path]) -> list[tuple[str, pd.DataFrame]]:
     """(application, its sets.csv) of each earlier application's match folder."""
-    import json
-
-    from kinset.errors import InputError
-    from kinset.io.output import read_result
     out = []
     for folder in map(Path, folders):
         summary, sets = folder / "summary.json", folder / "sets.csv"
