@@ -7,6 +7,7 @@ ledger once, atomically; nothing else in it changes.
 
 from __future__ import annotations
 
+import json
 import re
 from pathlib import Path
 
@@ -112,11 +113,7 @@ def free_parts(results: str | Path, application: str, book: Ledger,
     """Parts ``application`` may take: not kept, not retired, not placed by an application
     before it in the reel's list (parts in new sets of this or later applications are free:
     nobody has pulled them)."""
-    import json
-    reel = json.loads((Path(results) / "reel.json").read_text(encoding="utf-8")) \
-        if (Path(results) / "reel.json").is_file() else {}
-    order = [Path(e["profile"] if isinstance(e, dict) else e).stem
-             for e in reel.get("applications", [])]
+    order = [Path(item).stem for item in _reel_applications(results)]
     earlier = order[:order.index(application)] if application in order else []
     taken = set(book.by_device())
     for name in earlier:
@@ -175,13 +172,8 @@ def apply_replacement(book: Ledger, application: str, number: int, device: str,
 def _profile_of(results: str | Path, application: str) -> str:
     """The profile an application name stands for: the reel's own YAML of that name (from
     reel.yaml's list, relative to the reel folder), else the shipped profile."""
-    import json
-    settings = Path(results) / "reel.json"
     owner = results_owner(results)
-    entries = json.loads(settings.read_text(encoding="utf-8")).get("applications", []) \
-        if settings.is_file() else []
-    for e in entries:
-        item = e["profile"] if isinstance(e, dict) else e
+    for item in _reel_applications(results):
         if Path(item).stem == application and item.endswith((".yaml", ".yml")) and owner:
             return str(owner / item)
     return application
@@ -197,3 +189,12 @@ def unplaced_parts(results: str | Path, devices: list[str]) -> list[str]:
     if owner is not None:
         placed |= set(read_ledger(owner / LEDGER_NAME).by_device())
     return [d for d in devices if d not in placed]
+
+
+def _reel_applications(results: str | Path) -> list[str]:
+    """The profiles of reel.yaml's applications, in priority order (from reel.json)."""
+    settings = Path(results) / "reel.json"
+    if not settings.is_file():
+        return []
+    entries = json.loads(settings.read_text(encoding="utf-8")).get("applications", [])
+    return [e["profile"] if isinstance(e, dict) else e for e in entries]
