@@ -32,10 +32,14 @@ EVIL_ID = 'D003<script>alert("x")</script>&'
 EVIL_CSV = '"D003<script>alert(""x"")</script>&"'
 
 
-def demo_results(folder: Path, devices: int = 40, seed: int = 412, markup_id: bool = True) -> Path:
-    """A demo reel in ``folder/reel`` and its extraction tables in ``folder/results``."""
+def demo_results(folder: Path, devices: int = 40, seed: int = 412, markup_id: bool = True,
+                 edit=None) -> Path:
+    """A demo reel in ``folder/reel`` and its extraction tables in ``folder/results``;
+    ``edit(reel_dir)``, when given, changes the reel's files before extraction."""
     from kinset.demo import write_demo
     reel_dir = write_demo(folder / "reel", devices=devices, seed=seed)
+    if edit is not None:
+        edit(reel_dir)
     for path in sorted(reel_dir.rglob("*.csv")) if markup_id else []:   # D003 -> EVIL_ID
         text = path.read_text(encoding="utf-8")
         if "\nD003," in text:

@@ -216,7 +216,10 @@ def test_a_part_measured_at_one_bias_is_matched_on_its_measured_capacitance(tmp_
         "device": ["A", "B"], "status": ["ok", "warning"],
         "note": ["", "only 1 reverse bias(es): too few for the law"],
         "cj0_F": [1.0e-12, np.nan], "vj_V": [0.7, np.nan], "m": [0.45, np.nan],
-        "fit_rms_F": [1e-15, np.nan], "vr_min_V": [0.0, 0.0], "vr_max_V": [5.0, 0.0]}),
+        "fit_rms_F": [1e-15, np.nan], "vr_min_V": [0.0, 0.0], "vr_max_V": [5.0, 0.0],
+        # the fit's standard errors and correlations, from which A's value gets its u
+        "cj0_F_se": [1e-15, np.nan], "vj_V_se": [0.01, np.nan], "m_se": [0.005, np.nan],
+        "corr_cj0_vj": [0.9, np.nan], "corr_cj0_m": [0.8, np.nan], "corr_vj_m": [0.95, np.nan]}),
         results / "capacitance.csv")
     write_csv(pd.DataFrame({"device": ["B", "B"], "reverse_voltage_V": [0.0, 2.0],
                             "capacitance_F": [1.008e-12, 0.6e-12], "used": [1, 0]}),

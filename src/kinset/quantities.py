@@ -3,6 +3,12 @@
 These are what the matcher compares: forward voltage at a current and temperature,
 and its temperature coefficient, from each device's fitted model. A condition
 outside what was measured is refused with a reason, never extrapolated.
+
+Each value carries the standard uncertainty of how it was obtained (``Evaluated.u``,
+besides the instrument's, which the matcher adds): a fitted model's, propagated from
+the fit's covariance to the condition (:func:`kinset.uncertainty.propagate`), or a
+single reading's temperature correction. NaN where the fit left no degrees of freedom
+to estimate one (as many readings as parameters).
 """
 
 from __future__ import annotations
@@ -18,11 +24,22 @@ from kinset.outcomes import Catalogue, first_clause
 from kinset.physics.constants import ZERO_CELSIUS
 from kinset.physics.forward import (forward_voltage_tempco as _tempco,
                                     saturation_current_at, voltage_from_current)
+from kinset.uncertainty import propagate
 
 # A reading serves a requested current within this relative difference (1 % of
 # current moves a silicon junction's voltage by about N·Vt·0.01 ≈ 0.5 mV).
 READING_CURRENT_REL = 0.01
-READING_TEMPERATURE_K = 0.5   # [K] a reading serves only at its own temperature
+# A single reading serves within this many kelvin of the requested temperature, moved
+# there by the material's typical forward-voltage temperature coefficient.
+READING_TEMPERATURE_K = 5.0
+# dV/dT of a small-signal junction near 1 mA [V/K], by EG of the reel's material: silicon
+# about -2 mV/K (common practice); low-barrier junctions (Schottky, germanium: EG below
+# 0.9 eV) about -1.5 mV/K (from memory). Their standard uncertainty, 0.3 mV/K, covers
+# parts from about -1.5 to -2.5 mV/K (silicon) as a rectangular half-width of 0.5 mV/K
+# (JCGM 100:2008 §4.3.7); the correction's part of u is |ΔT| times it.
+READING_TEMPCO = {"silicon": -2.0e-3, "low_barrier": -1.5e-3}
+READING_TEMPCO_U = 0.3e-3
+LOW_BARRIER_EG = 0.9          # [eV] below this the reel's material is a low-barrier junction
 RANGE_SLACK = 1e-6            # relative slack on the measured current range (rounding)
 
 
@@ -31,17 +48,21 @@ REFUSALS = Catalogue.load("quantities")
 
 @dataclass
 class Evaluated:
-    """Values per device (NaN where refused), the reason for each refusal ('' if none) and
-    its code (:data:`REFUSALS`; '' if none)."""
+    """Values per device (NaN where refused), the reason for each refusal ('' if none),
+    its code (:data:`REFUSALS`; '' if none) and the standard uncertainty ``u`` of the
+    value from its fit or correction (SI; 0 where none applies, NaN where unknown)."""
 
     device: np.ndarray
     value: np.ndarray
     reason: np.ndarray
     code: np.ndarray | None = None
+    u: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         if self.code is None:
             self.code = np.full(len(self.device), "", dtype=object)
+        if self.u is None:
+            self.u = np.zeros(len(self.device))
 
     def refuse(self, i: int, code: str, **fields) -> None:
         """Refuse device ``i`` with ``code`` (its value becomes NaN)."""
@@ -49,9 +70,10 @@ class Evaluated:
         self.code[i] = code
         self.reason[i] = REFUSALS.text(code, **fields)
 
-    def serve(self, i: int, value: float) -> None:
-        """Give device ``i`` a value (clearing an earlier refusal)."""
+    def serve(self, i: int, value: float, u: float = 0.0) -> None:
+        """Give device ``i`` a value and its uncertainty (clearing an earlier refusal)."""
         self.value[i] = value
+        self.u[i] = u
         self.code[i] = ""
         self.reason[i] = ""
 
@@ -107,6 +129,32 @@ def _forward_law(devices: pd.DataFrame, rows: np.ndarray, temperature: float):
             d["eg_eV"].to_numpy(float), d["xti"].to_numpy(float))
 
 
+def _fit_errors(d: pd.DataFrame, params: np.ndarray, se_columns, corr_columns,
+                log_params=()) -> tuple[np.ndarray, np.ndarray]:
+    """Standard errors (of the parameters as fitted: ln of those in ``log_params``) and
+    correlations of the rows of ``d``. A missing correlation column reads as NaN
+    (unknown), a parameter with a ``<name>_fixed`` flag of 1 has a standard error of 0."""
+    se = np.column_stack([d[c].to_numpy(float) if c in d else np.full(len(d), np.nan)
+                          for c in se_columns])
+    for j in log_params:
+        se[:, j] = se[:, j] / params[:, j]
+    corr = np.column_stack([d[c].to_numpy(float) if c in d else np.full(len(d), np.nan)
+                            for c in corr_columns])
+    return se, corr
+
+
+def _forward_u(devices: pd.DataFrame, rows: np.ndarray, f) -> np.ndarray:
+    """Standard uncertainty of ``f(IS0, N, RS)`` from each fitted row's covariance."""
+    d = devices[rows]
+    law = d[["is_A", "n", "rs_ohm"]].to_numpy(float)
+    se, corr = _fit_errors(d, law, ("is_A_se", "n_se", "rs_ohm_se"),
+                           ("corr_is_n", "corr_is_rs", "corr_n_rs"), log_params=(0,))
+    if "rs_fixed" in d:
+        se[d["rs_fixed"].to_numpy(float) == 1, 2] = 0.0
+    fitted = np.column_stack([np.log(law[:, 0]), law[:, 1:]])
+    return propagate(lambda p: f(np.exp(p[:, 0]), p[:, 1], p[:, 2]), fitted, se, corr)
+
+
 def forward_voltage(devices: pd.DataFrame, current: float, temperature: float,
                     readings: pd.DataFrame | None = None) -> Evaluated:
     """Forward voltage of each device at ``current`` [A] and junction ``temperature`` [K].
@@ -132,9 +180,12 @@ def forward_voltage(devices: pd.DataFrame, current: float, temperature: float,
     inside = _outside_forward_range(ev, devices, current)
     if fitted.any():
         i_s0, n, rs, t0, eg, xti = _forward_law(devices, fitted, temperature)
-        i_s = saturation_current_at(i_s0, temperature, t0, n, eg, xti)
-        v = voltage_from_current(current, i_s, n, rs, temperature)
-        ev.value[fitted] = np.where(inside[fitted], v, np.nan)
+
+        def law(i_s0, n, rs):
+            i_s = saturation_current_at(i_s0, temperature, t0, n, eg, xti)
+            return voltage_from_current(current, i_s, n, rs, temperature)
+        ev.value[fitted] = np.where(inside[fitted], law(i_s0, n, rs), np.nan)
+        ev.u[fitted] = _forward_u(devices, fitted, law)
     _unfitted(ev, devices, np.flatnonzero(~fitted), "forward", "no fitted forward model",
               whole_note=True)
     if readings is not None and (~fitted).any():
@@ -142,17 +193,30 @@ def forward_voltage(devices: pd.DataFrame, current: float, temperature: float,
     return ev
 
 
+def reading_tempco(eg_ev: float) -> float:
+    """Typical dV/dT [V/K] of a single reading's junction, by the reel's EG
+    (:data:`READING_TEMPCO`)."""
+    return READING_TEMPCO["silicon" if eg_ev >= LOW_BARRIER_EG else "low_barrier"]
+
+
 def _serve_readings(devices, readings, current, temperature, fitted, ev: Evaluated):
-    """Fill unfitted devices from readings taken at the requested condition."""
+    """Fill unfitted devices from readings taken at the requested current, within
+    :data:`READING_TEMPERATURE_K` of ``temperature``: each reading moved there by the
+    material's typical temperature coefficient, its uncertainty |ΔT|·u(dV/dT) carried."""
     want = set(devices["device"].to_numpy()[~fitted & (devices["status"] != "rejected").to_numpy()])
     r = readings[readings["device"].isin(want) & (readings["used"] == 1)]
+    d_t = temperature - (r["temperature_C"].to_numpy(float) + ZERO_CELSIUS)
     close = (np.abs(np.log(r["current_A"].to_numpy(float) / current)) <= READING_CURRENT_REL) & \
-            (np.abs(r["temperature_C"].to_numpy(float) + ZERO_CELSIUS - temperature)
-             <= READING_TEMPERATURE_K)
-    served = r[close].groupby("device")["voltage_V"].mean()
+            (np.abs(d_t) <= READING_TEMPERATURE_K)
+    eg = devices.set_index("device")["eg_eV"].astype(float)
+    tempco = np.array([reading_tempco(eg[d]) for d in r["device"]]) if len(r) else np.empty(0)
+    moved = pd.DataFrame({"device": r["device"].to_numpy(),
+                          "v": r["voltage_V"].to_numpy(float) + tempco * d_t,
+                          "u": np.abs(d_t) * READING_TEMPCO_U})[close]
+    served = moved.groupby("device").agg(v=("v", "mean"), u=("u", "mean"))
     index = {d: i for i, d in enumerate(devices["device"].to_numpy())}
-    for dev, v in served.items():
-        ev.serve(index[dev], v)
+    for dev, row in served.iterrows():
+        ev.serve(index[dev], row["v"], row["u"])
     for dev in want - set(served.index):
         i = index[dev]
         ev.refuse(i, "no_reading", note=ev.reason[i], condition=si(current, "A"),
@@ -175,8 +239,11 @@ def forward_voltage_tempco(devices: pd.DataFrame, current: float,
     inside = _outside_forward_range(ev, devices, current)
     if fitted.any():
         i_s0, n, rs, t0, eg, xti = _forward_law(devices, fitted, temperature)
-        g = _tempco(current, i_s0, n, rs, temperature, t0, eg, xti)
-        ev.value[fitted] = np.where(inside[fitted], g, np.nan)
+
+        def law(i_s0, n, rs):
+            return _tempco(current, i_s0, n, rs, temperature, t0, eg, xti)
+        ev.value[fitted] = np.where(inside[fitted], law(i_s0, n, rs), np.nan)
+        ev.u[fitted] = _forward_u(devices, fitted, law)
     unfitted = np.flatnonzero(~fitted)
     _unfitted(ev, devices, unfitted, "forward", "no fitted forward model", whole_note=True)
     for i in unfitted:
@@ -195,6 +262,14 @@ def column_value(table: pd.DataFrame, column: str, label: str) -> Evaluated:
     status = table["status"].to_numpy()
     note = table["note"].fillna("").astype(str).to_numpy()
     ev.value[:] = values
+    if f"{column}_se" in table:      # a fitted parameter: its standard error
+        ev.u[:] = table[f"{column}_se"].to_numpy(dtype=float)
+    else:
+        # a row with a warning whose doubt no uncertainty expresses is not compared as if
+        # it were ok
+        for i in np.flatnonzero(np.isfinite(values) & (status == "warning")):
+            ev.refuse(i, "warning_without_uncertainty", label=label,
+                      note=first_clause(note[i]))
     for i in np.flatnonzero(~np.isfinite(values) | (status == "rejected")):
         first = first_clause(note[i])
         if status[i] == "rejected":
@@ -250,6 +325,7 @@ def capacitance(devices: pd.DataFrame, reverse_voltage: float,
     ok = fitted & inside
     if ok.any():
         ev.value[ok] = junction_capacitance(vr, law[ok, 0], law[ok, 1], law[ok, 2]) + cp[ok]
+        ev.u[ok] = _capacitance_u(devices[ok], np.column_stack([law[ok], cp[ok]]), vr)
     for i in np.flatnonzero(fitted & ~inside):
         ev.refuse(i, "outside_range", condition=f"{vr:g} V", what="reverse-bias",
                   low=f"{lo[i]:g}", high=f"{hi[i]:g} V")
@@ -261,10 +337,25 @@ def capacitance(devices: pd.DataFrame, reverse_voltage: float,
         served = p.groupby(p["device"].astype(str))["capacitance_F"].mean()
         for i in np.flatnonzero(want):
             if ev.device[i] in served.index:
-                ev.serve(i, served[ev.device[i]])
+                ev.serve(i, served[ev.device[i]])   # a measured point: the instrument's u
             else:
                 ev.refuse(i, "no_point", note=ev.reason[i], condition=f"{vr:g} V")
     return ev
+
+
+def _capacitance_u(d: pd.DataFrame, law: np.ndarray, vr: float) -> np.ndarray:
+    """Standard uncertainty of CJO/(1 + VR/VJ)^M + CP from each row's fit covariance
+    (parameters as fitted: ln CJO, ln VJ, M, CP; CP held at 0 where it was not fitted)."""
+    from kinset.physics.capacitance import junction_capacitance
+
+    se, corr = _fit_errors(d, law, ("cj0_F_se", "vj_V_se", "m_se", "cp_F_se"),
+                           ("corr_cj0_vj", "corr_cj0_m", "corr_cj0_cp", "corr_vj_m",
+                            "corr_vj_cp", "corr_m_cp"), log_params=(0, 1))
+    if "cp_F_se" not in d:
+        se[:, 3] = 0.0
+    fitted = np.column_stack([np.log(law[:, :2]), law[:, 2:]])
+    return propagate(lambda p: junction_capacitance(vr, np.exp(p[:, 0]), np.exp(p[:, 1]), p[:, 2])
+                     + p[:, 3], fitted, se, corr)
 
 
 LEAKAGE_VOLTAGE_SLACK = 1e-6   # relative slack on the modelled reverse-voltage range (rounding)

@@ -100,12 +100,27 @@ def solve_stack(a: np.ndarray, b: np.ndarray, rcond: float = 1e-13) -> np.ndarra
     return x
 
 
-def inverse_diagonal(a: np.ndarray, rcond: float = 1e-13) -> np.ndarray:
-    """Diagonal of the inverse of each matrix in a stack (NaN where singular)."""
+def inverse_stack(a: np.ndarray, rcond: float = 1e-13) -> np.ndarray:
+    """The inverse of each matrix in a stack (NaN where singular)."""
     p = a.shape[-1]
     eye = np.broadcast_to(np.eye(p), a.shape)
-    cols = [solve_stack(a, eye[:, :, j], rcond)[:, j] for j in range(p)]
-    return np.stack(cols, axis=1)
+    return np.stack([solve_stack(a, eye[:, :, j], rcond) for j in range(p)], axis=2)
+
+
+def inverse_diagonal(a: np.ndarray, rcond: float = 1e-13) -> np.ndarray:
+    """Diagonal of the inverse of each matrix in a stack (NaN where singular)."""
+    return np.einsum("kii->ki", inverse_stack(a, rcond))
+
+
+def correlations(cov: np.ndarray) -> np.ndarray:
+    """Correlation coefficients of each covariance matrix in a stack, upper triangle in
+    row order ((0,1), (0,2), …, (1,2), …), NaN where a variance is not positive."""
+    p = cov.shape[-1]
+    sd = np.sqrt(np.einsum("kii->ki", cov))
+    i, j = np.triu_indices(p, 1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = cov[:, i, j] / (sd[:, i] * sd[:, j])
+    return np.where(np.isfinite(r), np.clip(r, -1.0, 1.0), np.nan)
 
 
 

@@ -26,7 +26,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import Groups, grouped_normal_equations, inverse_diagonal, solve_stack
+from kinset.fitting.batch import (Groups, correlations, grouped_normal_equations, inverse_stack,
+                                  solve_stack)
 from kinset.fitting.capacitance_notes import CAPACITANCE
 from kinset.fitting.touchstone import point_status
 from kinset.format import si
@@ -190,6 +191,7 @@ class _Fit:
     fit_dev: np.ndarray          # the device has enough distinct biases for a fit
     params: np.ndarray           # (n, 4) ln CJO, ln VJ, M, CP (NaN: no fit)
     se: np.ndarray               # (n, 4) their standard errors
+    corr: np.ndarray             # (n, 6) their correlations, upper triangle in row order
     wrms: np.ndarray             # weighted rms residual, in accuracies
     model: np.ndarray            # [F] the fitted law at each point (NaN where not fitted)
     lo: np.ndarray               # bounds of the parameters
@@ -267,7 +269,8 @@ def _solve(pt: _Points, s: CapacitanceSettings) -> _Fit:
     n_par = 4 if s.package_capacitance else 3
     fit_dev = g.distinct(np.round(pt.vr / SAME_BIAS_V), pt.used) >= n_par
     out = _Fit(n_par=n_par, fit_dev=fit_dev, params=np.full((g.n, 4), np.nan),
-               se=np.full((g.n, 4), np.nan), wrms=np.full(g.n, np.nan),
+               se=np.full((g.n, 4), np.nan), corr=np.full((g.n, 6), np.nan),
+               wrms=np.full(g.n, np.nan),
                model=np.full(len(pt.vr), np.nan),
                lo=np.array([-np.inf, np.log(s.vj_range[0]), M_BOUNDS[0], 0.0]),
                hi=np.array([np.inf, np.log(s.vj_range[1]), M_BOUNDS[1], 0.0]))
@@ -286,10 +289,14 @@ def _solve(pt: _Points, s: CapacitanceSettings) -> _Fit:
     dof = m_k - n_par
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.where(dof > 0, ssr / np.maximum(dof, 1), np.nan)
-        cov = inverse_diagonal(jtj, rcond=1e-15) * s2[:, None]
+        inv = inverse_stack(jtj, rcond=1e-15)
+        cov = np.einsum("kii->ki", inv) * s2[:, None]
     ok = np.isfinite(par).all(axis=1) & np.isfinite(ssr)
     out.params[ids] = np.where(ok[:, None], par, np.nan)
     out.se[ids, :n_par] = np.sqrt(cov)
+    full = np.full((k, 4, 4), np.nan)
+    full[:, :n_par, :n_par] = inv
+    out.corr[ids] = correlations(full)
     out.wrms[ids] = np.sqrt(ssr / m_k)
     out.model[sel] = _law(par[idx], v)[0]
     return out
@@ -395,9 +402,13 @@ def _tables(pt: _Points, fit: _Fit, st: dict, findings: list[Finding],
         "fit_rms_F": st["rms_f"],
         "cj0_F_se": np.exp(par[:, 0]) * se[:, 0], "vj_V_se": np.exp(par[:, 1]) * se[:, 1],
         "m_se": se[:, 2],
+        # correlations of the fit (ln CJO, ln VJ, M), so that a capacitance at any bias
+        # carries the fit's uncertainty (kinset.quantities)
+        "corr_cj0_vj": fit.corr[:, 0], "corr_cj0_m": fit.corr[:, 1], "corr_vj_m": fit.corr[:, 3],
     }
     if s.package_capacitance:
-        out.update({"cp_F": par[:, 3], "cp_F_se": se[:, 3]})
+        out.update({"cp_F": par[:, 3], "cp_F_se": se[:, 3], "corr_cj0_cp": fit.corr[:, 2],
+                    "corr_vj_cp": fit.corr[:, 4], "corr_m_cp": fit.corr[:, 5]})
     n_cv, n_vna = st["n_cv"], st["n_vna"]
     out.update({
         "points": st["n_used"], "cv_points": n_cv, "vna_points": n_vna,

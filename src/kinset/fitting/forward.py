@@ -22,8 +22,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import (ByDevice, Groups, group_summer, grouped_normal_equations,
-                                  inverse_diagonal, solve_stack)
+from kinset.fitting.batch import (ByDevice, Groups, correlations, group_summer,
+                                  grouped_normal_equations, inverse_diagonal, inverse_stack,
+                                  solve_stack)
 from kinset.format import si
 from kinset.outcomes import Catalogue, Finding, compose
 from kinset.physics.constants import ZERO_CELSIUS, thermal_voltage
@@ -265,12 +266,14 @@ def _prepare(points: pd.DataFrame, s: ForwardSettings) -> _Readings:
 
 def solve_forward(idx: np.ndarray, k: int, cur: np.ndarray, volt: np.ndarray,
                   temp: np.ndarray, s: ForwardSettings
-                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Fit (ln IS0, N, RS) to the points of ``k`` devices: arrays in, arrays out.
 
     ``idx`` is each point's device (0..k-1), ``temp`` its junction temperature [K].
     Returns the parameters (k, 3) (NaN where the start was unusable), their standard
-    errors (k, 3) from the Jacobian at the solution, and the rms residual (k,) [V].
+    errors (k, 3) and correlation coefficients (k, 3: ln IS0–N, ln IS0–RS, N–RS) from
+    the covariance s²(JᵀJ)⁻¹ at the solution (JCGM 100:2008 §5.2, the fit's own
+    residual variance s²), and the rms residual (k,) [V].
     """
     lni = np.log(cur)
     vt = thermal_voltage(temp)
@@ -286,9 +289,9 @@ def solve_forward(idx: np.ndarray, k: int, cur: np.ndarray, volt: np.ndarray,
     dof = m - 3
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.where(dof > 0, ssr / np.maximum(dof, 1), np.nan)
-        cov_diag = inverse_diagonal(jtj, rcond=1e-15)
-        return (np.where(ok[:, None], p, np.nan), np.sqrt(s2[:, None] * cov_diag),
-                np.sqrt(ssr / m))
+        cov = inverse_stack(jtj, rcond=1e-15)
+        se = np.sqrt(s2[:, None] * np.einsum("kii->ki", cov))
+        return (np.where(ok[:, None], p, np.nan), se, correlations(cov), np.sqrt(ssr / m))
 
 
 def _solve(r: _Readings, s: ForwardSettings):
@@ -297,6 +300,7 @@ def _solve(r: _Readings, s: ForwardSettings):
     n_dev = len(r.names)
     params = np.full((n_dev, 3), np.nan)
     se = np.full((n_dev, 3), np.nan)
+    corr = np.full((n_dev, 3), np.nan)
     rms = np.full(n_dev, np.nan)
     sel = np.flatnonzero(r.used & r.groups.each(r.fit_dev))
     if len(sel):
@@ -304,9 +308,9 @@ def _solve(r: _Readings, s: ForwardSettings):
         remap = np.full(n_dev, -1)
         remap[fit_ids] = np.arange(len(fit_ids))
         idx = remap[r.groups.codes[sel]]
-        params[fit_ids], se[fit_ids], rms[fit_ids] = solve_forward(
+        params[fit_ids], se[fit_ids], corr[fit_ids], rms[fit_ids] = solve_forward(
             idx, len(fit_ids), r.cur[sel], r.volt[sel], r.temp[sel], s)
-    return params, se, rms
+    return params, (se, corr), rms
 
 
 def _self_heating(r: _Readings, params: np.ndarray, s: ForwardSettings):
@@ -392,10 +396,11 @@ def _diagnose(r: _Readings, params, rms, heating, s: ForwardSettings) -> list[Fi
     ]
 
 
-def _table(r: _Readings, params, se, rms, heat_k, findings: list[Finding],
+def _table(r: _Readings, params, errors, rms, heat_k, findings: list[Finding],
            s: ForwardSettings) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The device table (status, note and reason_code composed from the findings once)
-    and the readings table."""
+    and the readings table; ``errors`` is (standard errors, correlations)."""
+    se, corr = errors
     status, note, reason_code = compose(len(r.names), findings, NOTES)
     i_min, i_max = r.used_range(r.cur)
     t_min, t_max = r.used_range(r.temp)
@@ -414,6 +419,11 @@ def _table(r: _Readings, params, se, rms, heat_k, findings: list[Finding],
         "is_A_se": is_a * se[:, 0],
         "n_se": se[:, 1],
         "rs_ohm_se": se[:, 2],
+        # correlations of the fit (ln IS with N, ln IS with RS, N with RS), so that a
+        # value at any condition carries the fit's uncertainty (kinset.quantities)
+        "corr_is_n": corr[:, 0],
+        "corr_is_rs": corr[:, 1],
+        "corr_n_rs": corr[:, 2],
         "i_min_A": i_min,
         "i_max_A": i_max,
         "t_min_C": t_min - ZERO_CELSIUS,
@@ -459,7 +469,7 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
         entered the fit), for the report and for single readings.
     """
     readings = _prepare(points, settings)
-    params, se, rms = _solve(readings, settings)
+    params, errors, rms = _solve(readings, settings)
     heating = _self_heating(readings, params, settings)
     findings = _diagnose(readings, params, rms, heating, settings)
-    return _table(readings, params, se, rms, heating[0], findings, settings)
+    return _table(readings, params, errors, rms, heating[0], findings, settings)

@@ -17,8 +17,10 @@ REASONS = Catalogue.load("matching", extra=[
     Note(f"no_{d}_data", "rejected", "no {dataset} data{where}") for d in NAMES])
 
 STAGES = ("data", "screen", "guard", "taken", "no_set")
-_STAGE_OF = {"screen_failed": "screen", "within_guard_band": "guard", "no_partner": "no_set",
-             "too_few_partners": "no_set", "partners_used": "no_set", "quota_reached": "no_set",
+_STAGE_OF = {"screen_failed": "screen", "within_guard_band": "guard", "uncertain": "guard",
+             "less_certain": "guard",
+             "no_partner": "no_set", "too_few_partners": "no_set", "partners_used": "no_set",
+             "quota_reached": "no_set",
              "retired": "taken", "kept_elsewhere": "taken", "placed_earlier": "taken"}
 # Every other code (the matcher's missing data, the refusals of kinset.quantities) is data.
 

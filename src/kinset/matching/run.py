@@ -6,7 +6,6 @@ This is what ``kinset match`` and the workflow's match rule call.
 from __future__ import annotations
 
 import json
-import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -15,11 +14,10 @@ import pandas as pd
 from scipy.spatial import cKDTree
 
 from kinset.errors import InputError
-from kinset.format import si
 from kinset.io.output import read_result, write_csv, write_text
 from kinset.matching.allocation import Allocation, tape_order
-from kinset.matching.criteria import (accuracy_guard, column_suffix, effective_tolerance,
-                                     evaluate, instrument_uncertainty, normalise, spread,
+from kinset.matching.criteria import (column_suffix, effective_tolerance, evaluate,
+                                     format_amount, normalise, pair_guard, spread,
                                      spread_columns)
 from kinset.matching.graph import set_cost
 from kinset.matching.profile import Profile, load_profile
@@ -94,8 +92,9 @@ def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Pro
     eff = {d.name: effective_tolerance(d, ev.guards[d.name], ev.typical[d.name]) for d in dims}
     impossible = [d for d in dims if not eff[d.name] > 0]
     for d in impossible:
+        guard = ev.guards[d.name] / abs(ev.typical[d.name]) if d.relative else ev.guards[d.name]
         reason = Reason.of("within_guard_band", d.name, criterion=d.describe(),
-                           guard=_fmt(ev.guards[d.name], d))
+                           guard=format_amount(guard, d))
         for dev in ev.devices:
             ev.reasons[dev].append(reason)
     cand = np.asarray([d for d in ev.devices if not ev.reasons[d]], dtype=object)
@@ -122,16 +121,20 @@ def set_columns(dims) -> list[str]:
     return ["set", "device"] + spreads + ["state", "check"]
 
 
-def kept_tolerance(profile: Profile, raw: np.ndarray, accuracy: dict) -> dict:
-    """Each dimension's tolerance after a guard band taken at the set's own values (the
-    median of its members), not the reel's: a kept set is judged by its own readings, so
-    data of other parts never move its margins."""
+def kept_tolerance(profile: Profile, raw: np.ndarray, u: np.ndarray) -> dict:
+    """Each dimension's tolerance after the guard band of the set's own extreme members
+    (JCGM 106:2012 guarded acceptance, :func:`pair_guard` of the uncertainties ``u`` of its
+    largest and smallest value), not the reel's: a kept set is judged by its own readings,
+    so data of other parts never move its margins."""
     out = {}
     for j, d in enumerate(profile.dimensions):
-        finite = raw[np.isfinite(raw[:, j]), j]
-        typical = float(np.median(finite)) if len(finite) else math.nan
-        out[d.name] = effective_tolerance(d, accuracy_guard(profile, d, typical, accuracy),
-                                          typical)
+        x, uj = raw[:, j], u[:, j]
+        if profile.guard_band != "accuracy" or not np.isfinite(x).any():
+            out[d.name] = d.tolerance
+            continue
+        rel = uj / np.abs(x) if d.relative else uj
+        hi, lo = np.nanargmax(x), np.nanargmin(x)
+        out[d.name] = d.tolerance - float(pair_guard(rel[hi], rel[lo]))
     return out
 
 
@@ -145,15 +148,17 @@ def kept_table(alloc: Allocation, c: Candidates, profile: Profile) -> pd.DataFra
     ev, dims = c.evaluation, profile.dimensions
     rows = []
     for number, members in alloc.kept.items():
-        raw = ev.values.loc[members, [d.name for d in dims]].to_numpy(dtype=float) \
+        names = [d.name for d in dims]
+        raw = ev.values.loc[members, names].to_numpy(dtype=float) \
             if members else np.empty((0, len(dims)))
-        tolerance = kept_tolerance(profile, raw, c.accuracy)
+        u = ev.u.loc[members, names].to_numpy(dtype=float) if members else raw
+        tolerance = kept_tolerance(profile, raw, u)
         spreads = spread_columns(raw, dims, tolerance) if len(members) else {}
         check = "ok"
         if len(members) < profile.set_size:
             check = "broken"
-        elif any(ev.reasons[m] for m in members):
-            check = "member_refused"
+        elif any(r.code != "less_certain" for m in members for r in ev.reasons[m]):
+            check = "member_refused"    # (the reel-wide guard cap does not judge a kept set)
         elif any(spread(raw[:, j], d) > tolerance[d.name] * (1 + 1e-9)
                  for j, d in enumerate(dims)):
             check = "out_of_tolerance"
@@ -191,9 +196,10 @@ def unmatched_table(ev, placed: set) -> pd.DataFrame:
 
 
 def values_table(c: Candidates, profile: Profile, unmatched: pd.DataFrame) -> pd.DataFrame:
-    """values.csv: every part's value of each dimension and screen (SI) and its standard
-    uncertainty ``<name>_u`` (here the instruments' part, JCGM 100:2008 §4.3.7), with the
-    code and reason of a part not placed."""
+    """values.csv: every part's value of each dimension and screen (SI) and its combined
+    standard uncertainty ``<name>_u`` (the instrument's part, JCGM 100:2008 §4.3.7, with
+    the fit's or correction's, :func:`kinset.matching.criteria.combined_uncertainty`),
+    with the code and reason of a part not placed."""
     ev = c.evaluation
     out = pd.DataFrame({"device": ev.devices})
     named = [(d.name, d.quantity) for d in profile.dimensions]
@@ -203,7 +209,7 @@ def values_table(c: Candidates, profile: Profile, unmatched: pd.DataFrame) -> pd
         frame = ev.values if name in ev.values else ev.screened
         v = frame[name].to_numpy(dtype=float)
         out[name] = v
-        out[f"{name}_u"] = instrument_uncertainty(quantity, v, c.accuracy)
+        out[f"{name}_u"] = ev.u[name].to_numpy(dtype=float)
     why = unmatched.set_index("device")
     for col in ("reason_code", "reason"):
         out[col] = why[col].astype(object).reindex(ev.devices).fillna("").to_numpy()
@@ -304,12 +310,6 @@ def _summary(profile: Profile, c: Candidates, pool: Candidates, alloc: Allocatio
     if c.accuracy_note:
         summary["note"] = c.accuracy_note
     return summary
-
-
-def _fmt(value: float, dim) -> str:
-    if dim.relative:
-        return f"{100 * value:.3g} % of a typical value" if math.isfinite(value) else "n/a"
-    return si(value, dim.unit.replace("_per_K", "/K")) if dim.unit else f"{value:.3g}"
 
 
 def _neighbour_counts(z: np.ndarray, rows: list[int]) -> list[int]:

@@ -34,7 +34,7 @@ MAX_DRAWN_SETS = 50
 STAGES = {
     "data": "lacks the data the profile needs",
     "screen": "failed a screening limit",
-    "guard": "tolerance within the measurement guard band",
+    "guard": "too uncertain to verify a tolerance (guard band)",
     "taken": "placed by an earlier application",
     "no_set": "passed, but no set could take it",
 }
@@ -560,6 +560,10 @@ def _provenance_section(inp: ReportInputs, version: str) -> str:
             + "<h3>Matching</h3>" + _table(["", "value"], match_rows)
             + _table(["criterion", "tolerance", "guard band", "tolerance used", "weight"],
                      crit_rows, {1, 2, 3, 4})
+            + "<p>Each guard band is 2·√2 times the standard uncertainty it was set at, so "
+            "that any two parts within it pass guarded acceptance (JCGM 106:2012, k = 2); "
+            "<code>values.csv</code> holds every part's own combined uncertainty "
+            "(instrument, fit, temperature correction).</p>"
             + f"<h3>Application profile, as used</h3><p><code>{e(inp.profile_label)}</code></p>"
             + f"<pre>{e(inp.profile_text)}</pre>"
             + "<h3>Input files</h3>"
