@@ -195,6 +195,16 @@ def index_rows(*rows: str) -> Callable[[Path], None]:
     return go
 
 
+def inductor_s1p(bias: str) -> str:
+    """A one-port of 0.5 ohm + 5 nH to ground (a short standard where the part should be),
+    10 MHz-1 GHz: S11 = (Z - Z0)/(Z + Z0) (reflection coefficient, Kurokawa 1965)."""
+    import numpy as np
+    f = np.geomspace(1e7, 1e9, 51)
+    s = (0.5 + 2j * np.pi * f * 5e-9 - 50) / (0.5 + 2j * np.pi * f * 5e-9 + 50)
+    rows = (f"{a:.6e} {b.real:.9f} {b.imag:.9f}\n" for a, b in zip(f, s))
+    return "# Hz S RI R 50\n" + "".join(rows)
+
+
 def vna_device(new: str, files: Callable[[str], bytes | str]) -> Callable[[Path], None]:
     """A device measured only on the VNA: three files (from ``files(bias)``) and index rows."""
     def go(reel: Path) -> None:
@@ -408,6 +418,9 @@ CASES = [
               edit("capacitance/vna_D002_2V.s1p", touchstone_in("MHz", 1e6)),
               edit("capacitance/vna_D002_5V.s1p", touchstone_in("kHz", 1e3))),
          Accepted(same_values(("cj0_F", "vj_V", "m"), ("D002",)))),
+    Case("touchstone_inductive", "capacitance", vna_device("D901", inductor_s1p),
+         Rejected("D901", "vna_D901_0V.s1p: after the empty fixture is removed, not a capacitance: "
+                          "inductive at every frequency")),
     Case("touchstone_not_listed", "capacitance",
          lambda reel: shutil.copy(reel / "capacitance" / "vna_D002_0V.s1p",
                                   reel / "capacitance" / "stray.s1p"),
