@@ -336,6 +336,19 @@ CASES = [
          Rejected("D003", "no usable forward reading; 23 reading(s) with zero or negative current")),
     Case("fwd_reversed_sign_convention", "forward", edit(A, in_rows("D003", negate((2, 3)))),
          Rejected("D003", "reversed leads or sign convention")),
+    # Unit slips (issue 15, plausibility): numbers in mA or mV under an A or V column give
+    # readings no small-signal part gives (bounds in kinset.fitting.plausible, from memory);
+    # the part is rejected with a note naming the column and the likely unit (SI prefixes:
+    # BIPM SI Brochure, 9th ed., Table 7: 20 mA read as A is 20 A).
+    Case("fwd_mA_in_A_column", "forward",
+         copy_device("forward/batch_b_sweep_mA.csv", ZZ,
+                     "device,position,current_A,voltage_mV,temperature_C", "D007", "D901"),
+         Rejected("D901", "forward currents up to 20 A in column current_A: this looks like "
+                          "mA written as A")),
+    Case("fwd_mV_in_V_column", "forward",
+         copy_device("forward/batch_b_sweep_mA.csv", ZZ,
+                     "device,position,current_mA,voltage_V,temperature_C", "D007", "D901"),
+         Rejected("D901", "in column voltage_V: this looks like mV written as V")),
     # ---------------------------------------------------------------- forward supply form
     Case("supply_zero_resistance", "forward",
          put(ZZ, "device,supply_V,resistance_ohm,voltage_V\nD901,5,1000,0.6\nD901,5,0,0.7\n"),
@@ -358,6 +371,15 @@ CASES = [
          copy_device(LK, "leakage/zz_dup.csv", "device,reverse_voltage_V,reverse_current_A,"
                      "temperature_C", "D002", "D001", scale(2, 1000.0)),
          Rejected("D001", "readings in 2 files (leak_01.csv, zz_dup.csv) disagree")),
+    Case("leak_nA_in_A_column", "leakage",
+         copy_device(LK, "leakage/zz.csv", "device,reverse_voltage_V,reverse_current_A,"
+                     "temperature_C", "D002", "D901", scale(2, 1e9)),
+         Rejected("D901", "in column reverse_current_A: this looks like nA written as A")),
+    Case("leak_mV_in_V_column", "leakage",
+         copy_device(LK, "leakage/zz.csv", "device,reverse_voltage_V,reverse_current_A,"
+                     "temperature_C", "D002", "D901", scale(1, 1e3)),
+         Rejected("D901", "reverse voltages up to 80 kV in column reverse_voltage_V: this "
+                          "looks like mV written as V")),
     Case("leak_text_in_number", "leakage",
          put("leakage/zz.csv", "device,reverse_voltage_V,reverse_current_nA\nD901,20,3.5nA\n"),
          Error("leakage/zz.csv", 2, "reverse_current_nA", "'3.5nA' is not a finite number")),
@@ -383,6 +405,11 @@ CASES = [
          copy_device(CV, "capacitance/zz_dup.csv", "device,reverse_voltage_V,capacitance_pF,"
                      "frequency_Hz", "D001", "D001", scale(2, 2.0)),
          Rejected("D001", "C–V points in 2 files (cv_01.csv, zz_dup.csv) disagree")),
+    Case("cv_pF_in_F_column", "capacitance",
+         copy_device(CV, "capacitance/zz.csv", "device,reverse_voltage_V,capacitance_F,"
+                     "frequency_Hz", "D001", "D901"),
+         Rejected("D901", "capacitances up to 1.76 F in column capacitance_F: this looks like "
+                          "pF written as F")),
     Case("cv_negative_capacitance", "capacitance", edit(CV, in_rows("D001", negate((2,)))),
          Rejected("D001", "no usable capacitance point")),
     Case("cv_semicolon_decimal_comma", "capacitance", edit(CV, semicolons),

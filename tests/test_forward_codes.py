@@ -159,6 +159,10 @@ CORPUS = {
     "fwd_reversed_sign_convention": ("D003", "reversed_leads;nonpositive_current", "rejected"),
     "supply_below_diode_voltage": ("D019", "no_usable_reading;nonpositive_current",
                                    "rejected"),
+    # A unit slip rejects the part with that code alone: no fit, and no self-heating
+    # blamed on currents it never carried.
+    "fwd_mA_in_A_column": ("D901", "implausible_current", "rejected"),
+    "fwd_mV_in_V_column": ("D901", "implausible_voltage", "rejected"),
 }
 
 

@@ -62,6 +62,15 @@ def _cmd_check_reel(args) -> None:
         write_text(args.output, text)
         write_text(results / OWNER_NAME, owner_text(results, reel.folder))
     print(f"{reel.folder / 'reel.yaml'}: valid (reel id {reel.id})", file=sys.stderr)
+    from kinset.matching.profile import load_profile
+    for app in reel.applications:
+        _print_warnings(load_profile(app.profile, reel.folder))
+
+
+def _print_warnings(profile) -> None:
+    """A profile's warnings (tolerances outside their plausible range) on stderr."""
+    for warning in profile.warnings:
+        print(f"{profile.path}: warning: {warning}", file=sys.stderr)
 
 
 def _cmd_match(args) -> None:
@@ -72,6 +81,7 @@ def _cmd_match(args) -> None:
         out = Path(args.output) if len(names) == 1 else Path(args.output) / Path(name).stem
         result = run_match(args.results, name, out, args.ledger, after, args.sets_wanted)
         after.append(out)
+        _print_warnings(result.profile)
         print(summary_line(result.summary), file=sys.stderr)
 
 

@@ -204,6 +204,12 @@ class ByDevice:
         """A numeric column in device order."""
         return self._points[name].to_numpy(dtype=float)[self.order]
 
+    def text(self, name: str) -> np.ndarray:
+        """A text column in device order (None in every row when the table lacks it)."""
+        if name not in self._points:
+            return np.full(len(self.order), None, dtype=object)
+        return self._points[name].to_numpy(dtype=object)[self.order]
+
     def temperature(self, ambient: float) -> np.ndarray:
         """The rows' temperatures [K] in device order, ``ambient`` where a row has none."""
         t = self.column("temperature")

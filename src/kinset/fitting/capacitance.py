@@ -29,6 +29,7 @@ import pandas as pd
 from kinset.fitting.batch import (Groups, correlations, grouped_normal_equations, inverse_stack,
                                   solve_stack)
 from kinset.fitting.capacitance_notes import CAPACITANCE
+from kinset.fitting.plausible import CAPACITANCE as PLAUSIBLE_CAPACITANCE, beyond, column_names
 from kinset.fitting.touchstone import point_status
 from kinset.format import si
 from kinset.outcomes import Finding, compose
@@ -181,6 +182,7 @@ class _Points:
     nonpos: np.ndarray           # zero or negative capacitance
     forward: np.ndarray          # forward bias
     used: np.ndarray             # enters the fit (if the device has enough biases)
+    implausible: Finding         # C–V readings no small-signal part gives (rejects the part)
 
 
 @dataclass
@@ -253,9 +255,15 @@ def _prepare(points: pd.DataFrame, s: CapacitanceSettings) -> _Points:
     finite = np.isfinite(vr) & np.isfinite(cap) & ~rejected
     temp = p["temperature"].to_numpy(dtype=float)
     sigma = s.accuracy_gain * np.abs(cap) + s.accuracy_offset
+    groups = Groups(np.sort(codes, kind="stable"), len(names))
+    columns = p["column_capacitance"].to_numpy(dtype=object) if "column_capacitance" in p \
+        else np.full(len(p), None, dtype=object)
+    implausible = beyond("implausible_capacitance", PLAUSIBLE_CAPACITANCE, groups, cap,
+                         column_names(columns, PLAUSIBLE_CAPACITANCE), finite & ~vna)
+    finite &= ~groups.each(implausible.where)
     return _Points(
         frame=p, rest=pts.iloc[np.flatnonzero(~known)], names=np.asarray(names.astype(str)),
-        groups=Groups(np.sort(codes, kind="stable"), len(names)), vr=vr, cap=cap,
+        groups=groups, vr=vr, cap=cap, implausible=implausible,
         temp=np.where(np.isfinite(temp), temp, s.ambient_temperature),
         sigma=np.where(sigma > 0, sigma, np.abs(cap) * 1e-3 + 1e-18),
         vna=vna, rejected=rejected, warned=vna & (worst == "warning"),
@@ -357,10 +365,11 @@ def _diagnose(pt: _Points, fit: _Fit, st: dict, s: CapacitanceSettings) -> list[
 
     rms = {"rms": lambda d: si(st["rms_f"][d], "F")}
     return [
+        pt.implausible,
         Finding("cv_files_disagree", poor & (st["cv_names"] > 1), {
             "count": st["cv_names"], **rms, "files": lambda d: ", ".join(sorted(
                 {Path(f).name for f in src[block(d)][~pt.vna[block(d)]]}))}),
-        Finding("no_usable_point", ~some),
+        Finding("no_usable_point", ~some & ~pt.implausible.where),
         Finding("too_few_biases", few, {
             "count": lambda d: len(biases(d)),
             "biases": lambda d: ", ".join(f"{x:g} V" for x in biases(d)),

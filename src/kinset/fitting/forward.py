@@ -25,6 +25,7 @@ import pandas as pd
 from kinset.fitting.batch import (ByDevice, Groups, correlations, group_summer,
                                   grouped_normal_equations, inverse_diagonal, inverse_stack,
                                   solve_stack)
+from kinset.fitting.plausible import FORWARD_CURRENT, FORWARD_VOLTAGE, beyond, column_names
 from kinset.format import si
 from kinset.outcomes import Catalogue, Finding, compose
 from kinset.physics.constants import ZERO_CELSIUS, thermal_voltage
@@ -54,6 +55,7 @@ class ForwardSettings:
     xti: float                     # [1]
     thermal_resistance: float      # [K/W]
     correct_self_heating: bool = False   # junction at ambient + I·V·Rth per reading
+    material: str = "silicon"      # reel.yaml's material: which forward voltages are plausible
 
 
 def _model(lnis, n, rs, lni, cur, lt, theta_m1, vt, xti, eg):
@@ -197,7 +199,9 @@ class _Readings:
     where none was given, plus I·V·Rth when self-heating is corrected), the I·V·Rth
     rise ``d_t`` of usable points, and the masks ``finite``, ``usable`` (finite, I > 0),
     ``at_ilim`` / ``at_vlim`` (on an instrument's limit) and ``used`` (enters the fit).
-    Per device: ``distinct``, the number of distinct currents among used points.
+    Per device: ``distinct``, the number of distinct currents among used points;
+    ``implausible``, the findings of readings no small-signal part gives (a part with any
+    has no usable reading: no fit, no self-heating blamed on currents it never carried).
     """
 
     names: np.ndarray
@@ -215,6 +219,12 @@ class _Readings:
     at_vlim: np.ndarray
     used: np.ndarray
     distinct: np.ndarray
+    implausible: list[Finding]
+
+    @property
+    def implausible_dev(self) -> np.ndarray:
+        """Devices with a reading no small-signal part gives."""
+        return np.logical_or.reduce([f.where for f in self.implausible])
 
     @property
     def fit_dev(self) -> np.ndarray:
@@ -246,7 +256,13 @@ def _prepare(points: pd.DataFrame, s: ForwardSettings) -> _Readings:
     cur, volt = rows.column("current"), rows.column("voltage")
     temp = rows.temperature(s.ambient_temperature)
     finite = np.isfinite(cur) & np.isfinite(volt)
-    usable = finite & (cur > 0)
+    voltage_bound = FORWARD_VOLTAGE[s.material]
+    implausible = [
+        beyond("implausible_current", FORWARD_CURRENT, seg, cur,
+               column_names(rows.text("column_current"), FORWARD_CURRENT), finite),
+        beyond("implausible_voltage", voltage_bound, seg, volt,
+               column_names(rows.text("column_voltage"), voltage_bound), finite, s.material)]
+    usable = finite & (cur > 0) & ~seg.each(np.logical_or.reduce([f.where for f in implausible]))
     at_ilim, at_vlim = _plateaus(seg, cur, volt, usable)
     used = usable & ~at_ilim & ~at_vlim
     d_t = np.where(usable, cur * volt * s.thermal_resistance, 0.0)
@@ -261,7 +277,7 @@ def _prepare(points: pd.DataFrame, s: ForwardSettings) -> _Readings:
         src=points["source"].astype(str).to_numpy()[order],
         line=points["line"].to_numpy()[order],
         finite=finite, usable=usable, at_ilim=at_ilim, at_vlim=at_vlim, used=used,
-        distinct=distinct)
+        distinct=distinct, implausible=implausible)
 
 
 def solve_forward(idx: np.ndarray, k: int, cur: np.ndarray, volt: np.ndarray,
@@ -352,6 +368,7 @@ def _diagnose(r: _Readings, params, rms, heating, s: ForwardSettings) -> list[Fi
     seg = r.groups
     n_used = seg.count(r.used)
     i_min, i_max = r.used_range(r.cur)
+    implausible = r.implausible_dev
     none_used = n_used == 0
     reversed_ = seg.count(r.finite & (r.cur < 0) & (r.volt < 0)) == seg.counts
     too_few = ~none_used & ~r.fit_dev
@@ -369,8 +386,9 @@ def _diagnose(r: _Readings, params, rms, heating, s: ForwardSettings) -> list[Fi
     n_nonpos, n_ilim, n_vlim = (seg.count(r.finite & (r.cur <= 0)), seg.count(r.at_ilim),
                                 seg.count(r.at_vlim))
     return [
-        Finding("reversed_leads", none_used & reversed_),
-        Finding("no_usable_reading", none_used & ~reversed_),
+        *r.implausible,
+        Finding("reversed_leads", none_used & reversed_ & ~implausible),
+        Finding("no_usable_reading", none_used & ~reversed_ & ~implausible),
         Finding("single_point", too_few & (r.distinct == 1),
                 {"current": lambda d: si(i_min[d], "A")}),
         Finding("two_points", too_few & (r.distinct != 1),

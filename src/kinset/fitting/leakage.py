@@ -57,6 +57,7 @@ import numpy as np
 import pandas as pd
 
 from kinset.fitting.batch import ByDevice, Groups
+from kinset.fitting.plausible import REVERSE_CURRENT, REVERSE_VOLTAGE, beyond, column_names
 from kinset.format import si
 from kinset.outcomes import Catalogue, Finding, compose
 from kinset.physics.constants import ZERO_CELSIUS
@@ -79,7 +80,6 @@ OUTLIER_SIGMAS = 5.0        # robust z-score of log-current above which a part i
 OUTLIER_RATIO = 3.0         # ... when it also leaks at least 3× the reel median
 OUTLIER_MIN_DEVICES = 8     # fewer devices at a voltage give no meaningful reel statistics
 MAD_TO_SIGMA = 1.4826       # Hampel [2]
-MAX_PLAUSIBLE_A = 1.0       # [A] a reverse "leakage" reading above this is not leakage
 FILES_DISAGREE = 3.0         # readings of one id in two files this far apart at one voltage
 PLATEAU_REL = 2e-3          # top readings this close to the largest current sat at a limit
 
@@ -259,9 +259,14 @@ def _usable_points(points: pd.DataFrame, s: LeakageSettings):
     v = np.where(every.each(flip_v), -v, v)
     i = np.where(every.each(flip_i), -i, i)
     usable = (v > 0) & (i > 0)
-    implausible = every.count(usable & (i > MAX_PLAUSIBLE_A)) > 0
+    # Readings no small-signal part gives (plausible.py): the part is rejected for them.
+    findings = [beyond("implausible_current", REVERSE_CURRENT, every, i, column_names(
+                    rows.text("column_reverse_current"), REVERSE_CURRENT), usable),
+                beyond("implausible_voltage", REVERSE_VOLTAGE, every, v, column_names(
+                    rows.text("column_reverse_voltage"), REVERSE_VOLTAGE), usable)]
+    implausible = findings[0].where | findings[1].where
     usable &= ~every.each(implausible)
-    dropped = dict(signed=flip_v | flip_i, implausible=implausible, peak=every.max(i),
+    dropped = dict(signed=flip_v | flip_i, implausible=implausible, findings=findings,
                    total=every.counts, bad=every.counts - every.count(usable))
     return every.codes, names, (v, i, t, src[by_device], src_names), usable, dropped
 
@@ -533,7 +538,7 @@ def _rejections(r: _Readings, sw: _Sweep) -> list[Finding]:
         return ", ".join(sorted({Path(r.source_names[k]).name for k in mine}))
 
     return [
-        Finding("implausible_current", implausible, {"current": lambda i: si(d["peak"][i], "A")}),
+        *d["findings"],
         Finding("no_usable_reading", empty, {"count": d["total"]}),
         Finding("files_disagree", sw.conflict & ~implausible & ~empty,
                 {"n_files": sw.n_files, "files": files, "voltage": sw.worst_v,

@@ -16,23 +16,25 @@ from kinset.io.tables import Spec, read_table
 FORWARD_SWEEP = Spec(
     quantities={"voltage": "voltage", "current": "current", "temperature": "temperature"},
     required={"voltage", "current"},
-    text=("device",), integer=("position",),
+    text=("device",), integer=("position",), named=("voltage", "current"),
 )
 FORWARD_SUPPLY = Spec(
     quantities={"supply": "voltage", "resistance": "resistance", "voltage": "voltage",
                 "temperature": "temperature"},
     required={"supply", "resistance", "voltage"},
     text=("device",), integer=("position",), positive=("resistance",),
+    named=("supply", "resistance", "voltage"),
 )
 LEAKAGE = Spec(
     quantities={"reverse_voltage": "voltage", "reverse_current": "current",
                 "temperature": "temperature"},
     required={"reverse_voltage", "reverse_current"},
+    named=("reverse_voltage", "reverse_current"),
 )
 CAPACITANCE = Spec(
     quantities={"reverse_voltage": "voltage", "capacitance": "capacitance",
                 "frequency": "frequency", "temperature": "temperature"},
-    required={"reverse_voltage", "capacitance"},
+    required={"reverse_voltage", "capacitance"}, named=("capacitance",),
 )
 CAPACITANCE_INDEX = Spec(
     quantities={"reverse_voltage": "voltage", "temperature": "temperature"},
@@ -57,17 +59,23 @@ def read_forward(path: str | Path) -> pd.DataFrame:
     -------
     DataFrame
         ``device, voltage [V], current [A], temperature [K] (NaN when not given),
-        position (NaN when not given), source, line``.
+        position (NaN when not given), source, line``, and ``column_voltage``,
+        ``column_current``: the columns they were read from, as the header writes them.
     """
     path = str(path)
     frame = read_table(path, [FORWARD_SWEEP, FORWARD_SUPPLY])
     if "current" not in frame:   # the reader refused resistances <= 0 (Spec.positive)
         frame["current"] = (frame["supply"] - frame["voltage"]) / frame["resistance"].to_numpy()
-        frame = frame.drop(columns=["supply", "resistance"])
+        supply, resistance, voltage = (frame[f"column_{q}"].iloc[0]
+                                       for q in ("supply", "resistance", "voltage"))
+        frame["column_current"] = pd.Categorical.from_codes(
+            np.zeros(len(frame), dtype=np.int8), [f"({supply} \u2212 {voltage})/{resistance}"])
+        frame = frame.drop(columns=["supply", "resistance", "column_supply", "column_resistance"])
     for col in ("temperature", "position"):
         if col not in frame:
             frame[col] = np.nan
-    return frame[["device", "voltage", "current", "temperature", "position", "source", "line"]]
+    return frame[["device", "voltage", "current", "temperature", "position", "source", "line",
+                  "column_voltage", "column_current"]]
 
 
 def _read_with(path: str | Path, spec: Spec, optional: tuple[str, ...]) -> pd.DataFrame:

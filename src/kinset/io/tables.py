@@ -44,6 +44,8 @@ class Spec:
     required_text : the text columns that must be present.
     integer : plain columns holding whole numbers (``position``).
     positive : quantities whose every reading must be above zero.
+    named : quantities whose column name, as the header writes it, is kept beside the
+        readings as the text column ``column_<quantity>`` (for notes that name it).
     """
 
     quantities: dict[str, str]
@@ -52,6 +54,7 @@ class Spec:
     required_text: tuple[str, ...] = ("device",)
     integer: tuple[str, ...] = ()
     positive: tuple[str, ...] = ()
+    named: tuple[str, ...] = ()
 
 
 def _body(path: str) -> tuple[str | bytes, np.ndarray]:
@@ -405,6 +408,10 @@ def read_table(path: str | Path, spec: Spec | list[Spec]) -> pd.DataFrame:
             raise InputError(f"{quantity.replace('_', ' ')} must be positive (got "
                              f"{v[i]:g})", path, int(lines[i]), col)
         out[quantity] = v * unit.scale + unit.offset
+    for quantity in spec.named:
+        if quantity in found:
+            out[f"column_{quantity}"] = pd.Categorical.from_codes(
+                np.zeros(len(lines), dtype=np.int8), [found[quantity][0]])
     frame = pd.DataFrame(out)
     frame["source"] = path
     frame["line"] = lines

@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from kinset.errors import InputError
-from kinset.format import si
+from kinset.format import likely_unit, si
 from kinset.io.config import read_yaml, validate
 from kinset.io.profiles import resolve_profile
 from kinset.quantities import CONDITION_UNITS, QUANTITIES, Quantity, describe
@@ -70,6 +70,9 @@ class Profile:
     operating_temperature_C: float = 25.0
     dimensions: list[Dimension] = field(default_factory=list)
     screens: list[Screen] = field(default_factory=list)
+    # Tolerances outside the plausible range of their quantity (TOLERANCE_RANGES): each
+    # a sentence naming the key, its line and the likely unit. Warnings, never errors.
+    warnings: list[str] = field(default_factory=list)
 
     @classmethod
     def from_settings(cls, name: str, path: Path, settings: dict) -> "Profile":
@@ -89,6 +92,70 @@ class Profile:
     def datasets(self) -> set[str]:
         return {QUANTITIES[d.quantity].dataset for d in self.dimensions} | \
                {QUANTITIES[s.quantity].dataset for s in self.screens}
+
+
+@dataclass(frozen=True)
+class Plausible:
+    """The range a tolerance of one quantity plausibly lies in [SI], and why."""
+
+    low: float
+    high: float
+    reason: str
+
+
+# One plausible range per quantity's tolerance (SI, absolute), each with its reason. A
+# tolerance outside it is accepted with a warning naming the unit it was likely meant in
+# (a unit slip: tolerance_V: 1 written for 1 mV); an unusual application may need it.
+TOLERANCE_RANGES: dict[str, Plausible] = {
+    "forward_voltage": Plausible(1e-4, 0.1, "common practice: matched pairs and quads are "
+                                 "specified to 1-10 mV; 0.1 mV is a bench meter's resolution"),
+    "forward_voltage_tempco": Plausible(1e-6, 1e-3, "from memory: silicon's tempco is about "
+                                        "-2 mV/K near 1 mA; matching is to some µV/K"),
+    "reverse_current": Plausible(1e-12, 1e-5, "from memory: small-signal leakage is pA to µA"),
+    "capacitance": Plausible(1e-15, 1e-10, "from memory: small-signal diodes have 0.1-10 pF, "
+                             "varactors up to some hundreds of pF; matching is to fF or pF"),
+    "recovery_time": Plausible(1e-11, 1e-6, "from memory: switching diodes recover in ns, "
+                               "small-signal rectifiers in µs"),
+    "recovery_charge": Plausible(1e-14, 1e-8, "from memory: pC to nC for small-signal parts"),
+    "peak_reverse_current": Plausible(1e-5, 1.0, "common practice: recovery tests drive mA"),
+    "series_resistance": Plausible(1e-2, 1e3, "from memory: RS of small-signal diodes is "
+                                   "about 0.1-100 Ω"),
+    "ideality": Plausible(1e-3, 1.0, "common practice: N lies between 1 and 2"),
+}
+# tolerance_percent: a spread of more than the value itself matches nothing; below 0.1 %
+# is past any instrument's accuracy for these quantities (common practice).
+PERCENT_RANGE = Plausible(0.1, 100.0, "common practice")
+
+
+def tolerance_warning(quantity: str, key: str, written: float, tolerance: float,
+                      line: int | None = None) -> str | None:
+    """A sentence when ``tolerance`` (SI; percent for ``tolerance_percent``) lies outside
+    its quantity's plausible range, naming the unit it was likely meant in; else None."""
+    where = f" (line {line})" if line else ""
+    label = QUANTITIES[quantity].label
+    if key == "tolerance_percent":
+        r = PERCENT_RANGE
+        if r.low <= tolerance <= r.high:
+            return None
+        hint = (f"; a fraction written as percent? for {100 * written:g} % write "
+                f"{key}: {100 * written:g}" if tolerance < r.low else "")
+        return (f"{key}: {written:g}{where}: {label} tolerances in percent are usually "
+                f"{r.low:g}-{r.high:g} %{hint}")
+    r = TOLERANCE_RANGES[quantity]
+    if r.low <= tolerance <= r.high:
+        return None
+    per_k = "_per_K" if QUANTITIES[quantity].unit.endswith("_per_K") else ""
+    base = QUANTITIES[quantity].unit[: len(QUANTITIES[quantity].unit) - len(per_k)]
+    shown = base + ("/K" if per_k else "")
+    usual = f"{si(r.low, shown)}-{si(r.high, shown)}" if base else f"{r.low:g}-{r.high:g}"
+    text = f"{key}: {written:g}{where}: {label} tolerances are usually {usual}"
+    key_unit = key[len("tolerance_"):len(key) - len(per_k)]
+    meant = likely_unit(tolerance, key_unit, (r.low * r.high) ** 0.5, r.high) if base else ""
+    if not base or meant == key_unit:
+        return text
+    meant_si = written * PREFIXES[meant[: len(meant) - len(base)]]
+    in_key = meant_si / (tolerance / written)
+    return f"{text}; did you mean {si(meant_si, shown)} ({key}: {in_key:g})?"
 
 
 def _unit_factor(unit: str, expected: str, path, line, key) -> float:
@@ -156,6 +223,10 @@ def load_profile(name_or_path: str, base: Path | None = None) -> Profile:
         else:
             factor = _unit_factor(key[len("tolerance_"):], q.unit, path, lines.get(where), key)
             tol, relative, unit = entry[key] * factor, False, q.unit
+        warning = tolerance_warning(entry["quantity"], key, entry[key],
+                                    100 * tol if relative else tol, lines.get(where))
+        if warning:
+            profile.warnings.append(warning)
         for cond in _conditions(entry, q, where, path, lines):
             profile.dimensions.append(Dimension(
                 name=dimension_name(entry["quantity"], cond), quantity=entry["quantity"],

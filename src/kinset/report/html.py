@@ -166,6 +166,8 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
         ("provenance", "Provenance"), ("cautions", "Cautions")))
     return (f"<header><h1>{e(title)}: matched sets from reel {e(inp.reel_id)}</h1>"
             + (f'<p class="muted">{e(desc)}</p>' if desc else "")
+            + "".join(f'<p class="lead">Profile warning: {e(w)}</p>'
+                      for w in p.warnings)
             + f'<p class="lead">{e(n_sets)} set(s) of {e(k)} parts'
             + (f", {e(s.get('kept_sets'))} of them kept from earlier (listed apart)"
                if s.get("kept_sets") else "")
