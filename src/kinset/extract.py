@@ -59,6 +59,7 @@ def forward_settings(reel: Reel) -> ForwardSettings:
         xti=reel.xti,
         thermal_resistance=reel.settings["thermal_resistance_K_per_W"],
         correct_self_heating=reel.settings["self_heating"] == "correct",
+        voltage_floor=reel.settings["accuracy"]["voltage"]["offset_V"],
     )
 
 

@@ -27,11 +27,13 @@ from __future__ import annotations
 import hashlib
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import pandas as pd
 
-from kinset.outcomes import first_clause
+from kinset.fitting.forward import NOTES as FORWARD_NOTES
+from kinset.format import si
+from kinset.outcomes import first_clause, has_code
 from kinset.registry import NAMES
 from kinset.report.inputs import rows_by_device
 
@@ -107,11 +109,14 @@ class DeviceModel:
     ``params`` are the card's parameters and ``notes`` its comment lines on what the card
     leaves out or assumes; ``no_card`` is why no card is written ('' when one is): a
     card needs a fitted IS and N, never the simulator's defaults in their place.
+    ``fixed``: the lines written right above the card on a parameter the readings did
+    not determine (RS fixed at 0, a wide RS or N), each with why.
     """
 
     params: dict[str, float]
     notes: list[str]
     no_card: str = ""
+    fixed: list[str] = field(default_factory=list)   # what was fixed or is not determined, why
 
 
 def _forward_fit(fwd) -> tuple[dict[str, float], str]:
@@ -123,6 +128,26 @@ def _forward_fit(fwd) -> tuple[dict[str, float], str]:
         return fit, ""
     note = first_clause(comment_text(fwd.get("note", ""))) or "no fitted forward model"
     return {}, f"IS and N not fitted ({note})"
+
+
+def _undetermined(fwd: dict) -> list[str]:
+    """What the forward fit fixed or could not determine, and why (issue 15)."""
+    code = str(fwd.get("reason_code", "") or "")
+    out = []
+    lo, hi = _finite(fwd, "i_min_A"), _finite(fwd, "i_max_A")
+    span = f"{si(lo, 'A')} to {si(hi, 'A')}" if lo is not None and hi is not None else "?"
+    if has_code([code], "rs_not_determined")[0] or _finite(fwd, "rs_fixed") == 1:
+        noise = _finite(fwd, "noise_V")
+        why = FORWARD_NOTES.text("rs_not_determined", current=si(hi, "A") if hi else "?",
+                                 noise=si(noise, "V") if noise is not None else "?")
+        out.append(f"RS fixed at 0: {why}")
+    if has_code([code], "rs_imprecise")[0]:
+        out.append(f"RS not determined (its 95 % interval is wide, see forward.csv); the card "
+                   f"holds only over the measured {span}")
+    if has_code([code], "n_not_determined")[0]:
+        out.append(f"N and IS not determined (their 95 % intervals are wide, see forward.csv); "
+                   f"the card holds only over the measured {span}")
+    return [comment_text(x) for x in out]
 
 
 def device_model(device: str, rows: dict[str, dict | None], reel: dict) -> DeviceModel:
@@ -141,6 +166,7 @@ def device_model(device: str, rows: dict[str, dict | None], reel: dict) -> Devic
     if why:
         return DeviceModel({}, [], why)
     params.update(fit)
+    fixed = _undetermined(fwd)
     tnom = _finite(fwd, "reference_temperature_C")
     if _usable(cap) and all(_finite(cap, c) is not None for c in ("cj0_F", "vj_V", "m")):
         params.update(CJO=_finite(cap, "cj0_F"), VJ=_finite(cap, "vj_V"), M=_finite(cap, "m"))
@@ -178,7 +204,7 @@ def device_model(device: str, rows: dict[str, dict | None], reel: dict) -> Devic
         tnom = reel.get("reference_temperature_C")
     if tnom is not None:
         params["TNOM"] = float(tnom)
-    return DeviceModel(params, notes)
+    return DeviceModel(params, notes, fixed=fixed)
 
 
 
@@ -239,6 +265,7 @@ def models_lib(sets: pd.DataFrame, tables: dict[str, pd.DataFrame], reel: dict,
                 out.append(f"* no card for {names[dev]}: {comment_text(model.no_card)}")
                 continue
             out += [f"*   {n}" for n in model.notes]
+            out += [f"* {names[dev]}: {x}" for x in model.fixed]
             out.append(model_card(names[dev], model.params).rstrip("\n"))
         out.append("")
     out.append("* end of models")
