@@ -44,13 +44,19 @@ def demo_results(folder: Path, devices: int = 40, seed: int = 412, markup_id: bo
         text = path.read_text(encoding="utf-8")
         if "\nD003," in text:
             path.write_text(text.replace("\nD003,", f"\n{EVIL_CSV},"), encoding="utf-8")
+    return extract_results(reel_dir, folder / "results")
+
+
+def extract_results(reel_dir: Path, out: Path) -> Path:
+    """Every dataset of the reel folder extracted into ``out``, with devices.csv and reel.json."""
     reel = load_reel(reel_dir)
-    out = folder / "results"
     out.mkdir(parents=True, exist_ok=True)
     tables = {}
     for record in DATASETS:
         dataset, extract = record.name, record.extract
-        if not reel.dataset_files(dataset) and dataset != "capacitance":
+        # Touchstone files are not among the dataset's files: a capacitance folder is tried
+        if not reel.dataset_files(dataset) and not (
+                dataset == "capacitance" and (reel_dir / dataset).is_dir()):
             continue
         result = extract(reel, [])
         write_csv(result.table, out / f"{dataset}.csv")

@@ -62,13 +62,47 @@ def test_propagated_uncertainty_agrees_with_monte_carlo(currents, at):
     assert mc > 1e-6
 
 
-def test_a_fit_with_no_degrees_of_freedom_has_no_uncertainty_to_give():
-    # Three readings and three parameters (IS, N, RS): the residual variance s² has no
-    # degrees of freedom (JCGM 100:2008 §G.3), so u is unknown, never zero.
-    rng = np.random.default_rng(1)
-    table, _ = fit_forward(replicates(np.array([1e-4, 1e-3, 1e-2]), 3e-4, 3, rng), SI)
-    ev = forward_voltage(table, 1e-3, T25)
-    assert np.isfinite(ev.value).all() and np.isnan(ev.u).all()
+def test_propagation_is_exact_for_a_linear_function():
+    # Closed form (JCGM 100:2008 eq. 13 for f = a·p0 + b·p1, exact when f is linear):
+    # u² = a²u0² + b²u1² + 2ab·u0·u1·r. A fixed parameter (u = 0) correlates with nothing;
+    # an unknown u (NaN) makes the result unknown, never 0.
+    from kinset.uncertainty import propagate
+    a, b = 3.0, -2.0
+    f = lambda p: a * p[:, 0] + b * p[:, 1]          # noqa: E731
+    params = np.array([[1.0, 2.0], [1.0, 2.0], [1.0, 2.0]])
+    se = np.array([[0.1, 0.2], [0.1, 0.0], [np.nan, 0.2]])
+    corr = np.array([[0.5], [np.nan], [0.5]])
+    u = propagate(f, params, se, corr)
+    assert u[0] == pytest.approx(np.sqrt(9 * 0.01 + 4 * 0.04 + 2 * a * b * 0.1 * 0.2 * 0.5))
+    assert u[1] == pytest.approx(0.3)
+    assert np.isnan(u[2])
+
+
+def test_a_part_whose_uncertainty_is_unknown_is_left_out_as_uncertain(tmp_path):
+    # A C–V fit with as many biases as parameters leaves no residual degrees of freedom
+    # (JCGM 100:2008 §G.3): its standard errors are unknown, so is u, and under a guard
+    # band the part is left out as `uncertain`, not compared as if exact.
+    from kinset.io.output import write_csv
+    from kinset.matching.run import run_match
+    law = {"cj0_F": 1.0e-12, "vj_V": 0.7, "m": 0.45, "fit_rms_F": 1e-15, "vr_min_V": 0.0,
+           "vr_max_V": 5.0, "corr_cj0_vj": 0.9, "corr_cj0_m": 0.8, "corr_vj_m": 0.95}
+    rows = [{"device": d, "status": "ok", "note": "", **law, "cj0_F": c, "cj0_F_se": se,
+             "vj_V_se": 0.01 if se == se else np.nan, "m_se": 0.005 if se == se else np.nan}
+            for d, c, se in (("A", 1.0e-12, 1e-16), ("B", 1.001e-12, 1e-16),
+                             ("C", 1.002e-12, np.nan))]
+    write_csv(pd.DataFrame(rows), tmp_path / "capacitance.csv")
+    # a bridge of ±(0.1 % + 1 fF): u ≈ 1.2 fF at 1 pF, a small part of 50 fF
+    (tmp_path / "reel.json").write_text(
+        '{"accuracy": {"capacitance": {"gain": 1.0e-3, "offset_F": 1.0e-15}}}', encoding="utf-8")
+    p = tmp_path / "cap.yaml"
+    p.write_text("set_size: 2\nguard_band: accuracy\nmatch:\n"
+                 "  - {quantity: capacitance, at_reverse_voltage_V: 0, tolerance_F: 5.0e-14}\n")
+    run_match(tmp_path, str(p), tmp_path / "out")
+    values = pd.read_csv(tmp_path / "out" / "values.csv").set_index("device")
+    assert np.isnan(values.loc["C", "capacitance_at_0V_u"])
+    assert values.loc["C", "reason_code"] == "uncertain" and "unknown" in values.loc["C", "reason"]
+    sets = pd.read_csv(tmp_path / "out" / "sets.csv")
+    assert sorted(sets["device"]) == ["A", "B"]
 
 
 def _readings_table(temperature_c):

@@ -60,6 +60,7 @@ def forward_settings(reel: Reel) -> ForwardSettings:
         thermal_resistance=reel.settings["thermal_resistance_K_per_W"],
         correct_self_heating=reel.settings["self_heating"] == "correct",
         material=reel.settings["material"],
+        voltage_floor=reel.settings["accuracy"]["voltage"]["offset_V"],
     )
 
 

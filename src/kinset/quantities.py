@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from kinset.format import si
-from kinset.outcomes import Catalogue, first_clause
+from kinset.outcomes import Catalogue, first_clause, has_code
 from kinset.physics.constants import ZERO_CELSIUS
 from kinset.physics.forward import (forward_voltage_tempco as _tempco,
                                     saturation_current_at, voltage_from_current)
@@ -251,11 +251,20 @@ def forward_voltage_tempco(devices: pd.DataFrame, current: float,
     return ev
 
 
+# Codes of an extraction table (its reason_code) saying the readings did not determine a
+# column's value (issue 15, identifiability): matching on that column refuses the part.
+NOT_DETERMINED = {
+    "rs_ohm": ("rs_not_determined", "rs_imprecise"),
+    "n": ("n_not_determined",),
+}
+
+
 def column_value(table: pd.DataFrame, column: str, label: str) -> Evaluated:
     """A quantity that is a column of an extraction table (N, RS, trr, Qrr, Irrm).
 
     Devices whose row is rejected, or whose value is missing, get the first clause of
-    the table's note as the reason.
+    the table's note as the reason; devices whose row says the readings did not
+    determine the value (:data:`NOT_DETERMINED`) are refused with ``not_determined``.
     """
     ev = _empty(table)
     values = table[column].to_numpy(dtype=float) if column in table else np.full(len(table), np.nan)
@@ -270,6 +279,11 @@ def column_value(table: pd.DataFrame, column: str, label: str) -> Evaluated:
         for i in np.flatnonzero(np.isfinite(values) & (status == "warning")):
             ev.refuse(i, "warning_without_uncertainty", label=label,
                       note=first_clause(note[i]))
+    codes = NOT_DETERMINED.get(column, ())
+    if codes and "reason_code" in table:
+        for i in np.flatnonzero(has_code(table["reason_code"], *codes) & np.isfinite(values)
+                                & (status != "rejected")):
+            ev.refuse(i, "not_determined", label=label)
     for i in np.flatnonzero(~np.isfinite(values) | (status == "rejected")):
         first = first_clause(note[i])
         if status[i] == "rejected":

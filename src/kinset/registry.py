@@ -64,7 +64,7 @@ DATASETS: tuple[Dataset, ...] = (
     Dataset("forward", "forward V–I", "fwd", "kinset.io.datasets:read_forward",
             "kinset.extract:extract_forward",
             ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
-             "thermal_resistance_K_per_W", "self_heating"),
+             "thermal_resistance_K_per_W", "self_heating", "accuracy"),
             side_tables=("readings",)),
     Dataset("leakage", "reverse leakage", "leak", "kinset.io.datasets:read_leakage",
             "kinset.extract:extract_leakage",

@@ -21,6 +21,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from scipy.stats import t as student_t
 
 from kinset.fitting.batch import (ByDevice, Groups, correlations, group_summer,
                                   grouped_normal_equations, inverse_diagonal, inverse_stack,
@@ -43,6 +44,15 @@ TEMPCO_NO_MODEL = -2e-3     # [V/K] silicon near 1 mA, common practice; used wit
 N_BOUNDS = (0.2, 20.0)
 SE_FRACTION = 1e-2          # converged when a step is below this fraction of each standard error
 USUAL_N = (0.8, 4.0)        # outside this, a junction diode's N is suspicious (common practice)
+# Identifiability (issue 15): a parameter is determined when its 95 % confidence interval
+# (Student t with the fit's degrees of freedom, from the covariance s²(JᵀJ)⁻¹ at the
+# solution) is narrower than these fractions of its value. Measured on ngspice sweeps
+# with 0.2 mV noise (tests/test_forward_identifiability.py): a 4-decade sweep gives N to
+# ±0.1 % and RS to ±10 %; one decade at the top gives N ±1.3-2.2 % and RS ±30-45 %.
+CONFIDENCE = 0.95
+N_REL_CI = 0.01             # ±1 % of N (±0.018 at N = 1.8: a third of the shipped
+                            # audio profile's 0.05 ideality tolerance)
+RS_REL_CI = 0.25            # ±25 % of RS
 
 
 @dataclass
@@ -56,6 +66,9 @@ class ForwardSettings:
     thermal_resistance: float      # [K/W]
     correct_self_heating: bool = False   # junction at ambient + I·V·Rth per reading
     material: str = "silicon"      # reel.yaml's material: which forward voltages are plausible
+    # [V] the smallest voltage the voltmeter vouches for (reel.yaml accuracy.voltage
+    # offset_V): a drop I·RS below it is not seen, however smooth the readings.
+    voltage_floor: float = 0.0
 
 
 def _model(lnis, n, rs, lni, cur, lt, theta_m1, vt, xti, eg):
@@ -72,12 +85,28 @@ def _model(lnis, n, rs, lni, cur, lt, theta_m1, vt, xti, eg):
     return v, np.stack([d_lnis, d_n, cur], axis=1)
 
 
-def _linear(idx, k, lni, cur, y, vt, summer):
-    """Linear least squares of y on [Vt ln I, -Vt, I] per device: (N, N ln IS0, RS)."""
+def _pin_rs(jtj, jtr, fixed):
+    """Normal equations with RS held where ``fixed`` (per group): its row and column are
+    the identity's, so RS's step is 0 and (ln IS, N) solve their own 2×2 system."""
+    if fixed is None or not fixed.any():
+        return jtj, jtr
+    jtj, jtr = jtj.copy(), jtr.copy()
+    jtj[fixed, 2, :] = 0.0
+    jtj[fixed, :, 2] = 0.0
+    jtj[fixed, 2, 2] = 1.0
+    jtr[fixed, 2] = 0.0
+    return jtj, jtr
+
+
+def _linear(idx, k, lni, cur, y, vt, summer, fixed=None):
+    """Linear least squares of y on [Vt ln I, -Vt, I] per device: (N, N ln IS0, RS);
+    RS = 0 where ``fixed``."""
     x = np.stack([vt * lni, -vt, cur], axis=1)
     jtj, jtr = grouped_normal_equations(idx, x, y, k, summer)
     c = solve_stack(jtj, jtr)
     neg = ~(c[:, 2] >= 0)              # RS < 0 or NaN: refit with RS = 0
+    if fixed is not None:
+        neg |= fixed
     if neg.any():
         c[neg, :2] = solve_stack(jtj[neg][:, :2, :2], jtr[neg][:, :2])
         c[neg, 2] = 0.0
@@ -85,7 +114,7 @@ def _linear(idx, k, lni, cur, y, vt, summer):
     return np.stack([c[:, 1] / c[:, 0], n, c[:, 2]], axis=1)
 
 
-def _start(idx, k, lni, cur, vadj, vt, lt, theta_m1, xti, eg):
+def _start(idx, k, lni, cur, vadj, vt, lt, theta_m1, xti, eg, fixed=None):
     r"""Starting values: the linear fit, then once more with the ln(1 + I/IS) correction.
 
     With :math:`I \gg I_S` the model is linear in (N, N ln IS0, RS); the term
@@ -93,20 +122,21 @@ def _start(idx, k, lni, cur, vadj, vt, lt, theta_m1, xti, eg):
     IS, and one fixed-point pass with it taken from the first fit removes most of it.
     """
     summer = group_summer(idx, k)
-    p = _linear(idx, k, lni, cur, vadj, vt, summer)
+    p = _linear(idx, k, lni, cur, vadj, vt, summer, fixed)
     ln_is_t = p[idx, 0] + (xti / p[idx, 1]) * lt + theta_m1 * eg / (p[idx, 1] * vt)
     x = lni - ln_is_t
     # softplus(x) − x, written so that neither term overflows
     correction = p[idx, 1] * vt * (np.log1p(np.exp(-np.abs(x))) - np.minimum(x, 0.0))
     good = np.isfinite(correction)
-    return _linear(idx, k, lni, cur, vadj - np.where(good, correction, 0.0), vt, summer)
+    return _linear(idx, k, lni, cur, vadj - np.where(good, correction, 0.0), vt, summer, fixed)
 
 
 def levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, xti, eg, p0,
-                        max_iter=100, rtol=1e-8):
+                        max_iter=100, rtol=1e-8, fixed=None):
     """Fit (ln IS0, N, RS) per group by Levenberg–Marquardt, all groups at once.
 
-    Each iteration works only on the groups that have not converged yet. Returns
+    RS stays at its start where ``fixed`` (per group). Each iteration works only on the
+    groups that have not converged yet. Returns
     the parameters (k, 3), the sum of squared residuals per group, the number of
     points per group and whether the start was usable.
     """
@@ -143,7 +173,8 @@ def levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, xti, eg, p0,
         if not len(groups):
             break
         g = len(groups)
-        jtj, jtr = grouped_normal_equations(li, jac, r, g, total)
+        jtj, jtr = _pin_rs(*grouped_normal_equations(li, jac, r, g, total),
+                           None if fixed is None else fixed[groups])
         diag = np.einsum("kii->ki", jtj)
         a = jtj + lam[groups, None, None] * np.eye(3)[None] * diag[:, :, None]
         step = solve_stack(a, -jtr)
@@ -281,52 +312,123 @@ def _prepare(points: pd.DataFrame, s: ForwardSettings) -> _Readings:
 
 
 def solve_forward(idx: np.ndarray, k: int, cur: np.ndarray, volt: np.ndarray,
-                  temp: np.ndarray, s: ForwardSettings
+                  temp: np.ndarray, s: ForwardSettings, fixed: np.ndarray | None = None
                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Fit (ln IS0, N, RS) to the points of ``k`` devices: arrays in, arrays out.
 
-    ``idx`` is each point's device (0..k-1), ``temp`` its junction temperature [K].
+    ``idx`` is each point's device (0..k-1), ``temp`` its junction temperature [K];
+    where ``fixed`` (k,) RS is held at 0 and only (ln IS0, N) are fitted.
     Returns the parameters (k, 3) (NaN where the start was unusable), their standard
-    errors (k, 3) and correlation coefficients (k, 3: ln IS0–N, ln IS0–RS, N–RS) from
-    the covariance s²(JᵀJ)⁻¹ at the solution (JCGM 100:2008 §5.2, the fit's own
-    residual variance s²), and the rms residual (k,) [V].
+    errors (k, 3, NaN for a fixed RS) and correlation coefficients (k, 3: ln IS0–N,
+    ln IS0–RS, N–RS) from the covariance s²(JᵀJ)⁻¹ at the solution (JCGM 100:2008 §5.2,
+    the fit's own residual variance s²), and the rms residual (k,) [V].
     """
     lni = np.log(cur)
     vt = thermal_voltage(temp)
     lt = np.log(temp / s.reference_temperature)
     theta_m1 = temp / s.reference_temperature - 1.0
     vadj = volt + s.xti * vt * lt + theta_m1 * s.activation_energy
-    p0 = _start(idx, k, lni, cur, vadj, vt, lt, theta_m1, s.xti, s.activation_energy)
+    p0 = _start(idx, k, lni, cur, vadj, vt, lt, theta_m1, s.xti, s.activation_energy, fixed)
     p, ssr, m, ok = levenberg_marquardt(idx, k, lni, cur, volt, lt, theta_m1, vt, s.xti,
-                                        s.activation_energy, p0)
+                                        s.activation_energy, p0, fixed=fixed)
     _, jac = _model(p[idx, 0], p[idx, 1], p[idx, 2], lni, cur, lt, theta_m1, vt,
                     s.xti, s.activation_energy)
-    jtj, _ = grouped_normal_equations(idx, jac, np.zeros(len(idx)), k)
-    dof = m - 3
+    jtj, _ = _pin_rs(*grouped_normal_equations(idx, jac, np.zeros(len(idx)), k), fixed)
+    dof = m - 3 + (0 if fixed is None else fixed)
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.where(dof > 0, ssr / np.maximum(dof, 1), np.nan)
         cov = inverse_stack(jtj, rcond=1e-15)
         se = np.sqrt(s2[:, None] * np.einsum("kii->ki", cov))
-        return (np.where(ok[:, None], p, np.nan), se, correlations(cov), np.sqrt(ssr / m))
+        corr = correlations(cov)
+        if fixed is not None:
+            se[fixed, 2] = np.nan
+            corr[fixed, 1:] = np.nan
+        return (np.where(ok[:, None], p, np.nan), se, corr, np.sqrt(ssr / m))
 
 
-def _solve(r: _Readings, s: ForwardSettings):
-    """:func:`solve_forward` on the used points of the devices that can be fitted;
-    parameters, standard errors and rms per device of the reel (NaN for the others)."""
+def _solve_some(r: _Readings, s: ForwardSettings, which: np.ndarray,
+                fixed: np.ndarray | None = None):
+    """:func:`solve_forward` on the used points of the devices ``which`` (a mask over the
+    reel, RS held at 0 where ``fixed``); parameters, standard errors, correlations and
+    rms per device of the reel (NaN for the others)."""
     n_dev = len(r.names)
     params = np.full((n_dev, 3), np.nan)
     se = np.full((n_dev, 3), np.nan)
     corr = np.full((n_dev, 3), np.nan)
     rms = np.full(n_dev, np.nan)
-    sel = np.flatnonzero(r.used & r.groups.each(r.fit_dev))
+    sel = np.flatnonzero(r.used & r.groups.each(which))
     if len(sel):
-        fit_ids = np.flatnonzero(r.fit_dev)
+        fit_ids = np.flatnonzero(which)
         remap = np.full(n_dev, -1)
         remap[fit_ids] = np.arange(len(fit_ids))
         idx = remap[r.groups.codes[sel]]
         params[fit_ids], se[fit_ids], corr[fit_ids], rms[fit_ids] = solve_forward(
-            idx, len(fit_ids), r.cur[sel], r.volt[sel], r.temp[sel], s)
-    return params, (se, corr), rms
+            idx, len(fit_ids), r.cur[sel], r.volt[sel], r.temp[sel], s,
+            None if fixed is None else fixed[fit_ids])
+    return params, se, corr, rms
+
+
+@dataclass
+class _Identified:
+    """What the readings determine (issue 15, identifiability), per device.
+
+    ``noise``: the voltage noise [V] RS was judged against, the full fit's residual
+    standard deviation (dof = points − 3) but never below the voltmeter's floor;
+    ``rs_fixed``: RS held at 0 because I·RS stayed within the noise or RS's 95 % interval
+    holds 0; ``rs_wide`` / ``n_wide``: a fitted RS / N whose 95 % half-width exceeds
+    :data:`RS_REL_CI` / :data:`N_REL_CI` of its value; ``half``: the 95 % half-widths (k, 3).
+    """
+
+    noise: np.ndarray
+    rs_fixed: np.ndarray
+    rs_wide: np.ndarray
+    n_wide: np.ndarray
+    half: np.ndarray
+
+
+def _half_widths(r: _Readings, se, rms, fixed) -> tuple[np.ndarray, np.ndarray]:
+    """95 % half-widths (Student t with the fit's dof; infinite without dof) of the
+    parameters (ln IS0, N, RS), and the residual standard deviation [V]."""
+    m = r.groups.count(r.used).astype(float)
+    dof = m - 3 + fixed
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sd = np.where(dof > 0, rms * np.sqrt(m / np.maximum(dof, 1)), np.nan)
+        t = np.where(dof > 0, student_t.ppf(0.5 + CONFIDENCE / 2, np.maximum(dof, 1)), np.inf)
+    return t[:, None] * np.where(np.isfinite(se), se, np.inf), sd
+
+
+def _identify(r: _Readings, s: ForwardSettings, params, se, corr, rms):
+    """Hold RS at 0 where the readings cannot see it and refit IS and N there; judge what
+    the final fit determines. Returns parameters, (standard errors, correlations), rms,
+    :class:`_Identified`."""
+    fitted = r.fit_dev & np.isfinite(params).all(axis=1)
+    _, i_max = r.used_range(r.cur)
+    none = np.zeros(len(r.names), dtype=bool)
+    half, sd = _half_widths(r, se, rms, none)
+    noise = np.fmax(sd, s.voltage_floor)
+    rs = params[:, 2]
+    # I·RS at the top reading within the noise, or RS not significantly above 0: the
+    # readings cannot tell this RS from 0, so 0 changes no prediction inside their range.
+    fixed = fitted & ~((i_max * rs > noise) & (rs > half[:, 2]))
+    if fixed.any():
+        p2, se2, corr2, rms2 = _solve_some(r, s, fixed, fixed)
+        redo = fixed & np.isfinite(p2).all(axis=1)
+        params, se, rms = (np.where(redo[:, None], p2, params), np.where(redo[:, None], se2, se),
+                           np.where(redo, rms2, rms))
+        corr = np.where(redo[:, None], corr2, corr)
+        fixed = redo
+        half, _ = _half_widths(r, se, rms, fixed)
+    fitted = r.fit_dev & np.isfinite(params).all(axis=1)
+    rs_wide = fitted & ~fixed & ~(half[:, 2] <= RS_REL_CI * params[:, 2])
+    n_wide = fitted & ~(half[:, 1] <= N_REL_CI * params[:, 1])
+    return params, (se, corr), rms, _Identified(noise, fixed, rs_wide, n_wide, half)
+
+
+def _solve(r: _Readings, s: ForwardSettings):
+    """Fit every device that can be fitted, then hold RS at 0 where it is not determined
+    (:func:`_identify`)."""
+    params, se, corr, rms = _solve_some(r, s, r.fit_dev)
+    return _identify(r, s, params, se, corr, rms)
 
 
 def _self_heating(r: _Readings, params: np.ndarray, s: ForwardSettings):
@@ -363,7 +465,24 @@ def _files(r: _Readings) -> tuple[np.ndarray, object]:
     return 1 + seg.count(change), names
 
 
-def _diagnose(r: _Readings, params, rms, heating, s: ForwardSettings) -> list[Finding]:
+def _undetermined(r: _Readings, params, ident: _Identified) -> list[Finding]:
+    """RS held at 0, a wide RS, a wide N (and with it IS): what the readings do not determine."""
+    i_min, i_max = r.used_range(r.cur)
+    half = ident.half
+    return [
+        Finding("rs_not_determined", ident.rs_fixed,
+                {"current": lambda d: si(i_max[d], "A"), "noise": lambda d: si(ident.noise[d], "V")}),
+        Finding("rs_imprecise", ident.rs_wide,
+                {"rs": params[:, 2], "half": half[:, 2], "limit": f"{RS_REL_CI:.0%}"}),
+        Finding("n_not_determined", ident.n_wide,
+                {"n": params[:, 1], "half": half[:, 1], "limit": f"{N_REL_CI:.0%}",
+                 "is_factor": lambda d: f"{np.exp(min(half[d, 0], 700.0)):.3g}",
+                 "decades": lambda d: f"{np.log10(i_max[d] / i_min[d]):.2g}"}),
+    ]
+
+
+def _diagnose(r: _Readings, params, rms, heating, ident: _Identified,
+              s: ForwardSettings) -> list[Finding]:
     """What each device's readings and fit show, as findings in the order of its notes."""
     seg = r.groups
     n_used = seg.count(r.used)
@@ -408,13 +527,14 @@ def _diagnose(r: _Readings, params, rms, heating, s: ForwardSettings) -> list[Fi
         Finding("poor_fit", poor & (n_files == 1), rms_text),
         Finding("unusual_n", fitted & ~((USUAL_N[0] <= n_fit) & (n_fit <= USUAL_N[1])),
                 {"n": n_fit, "low": USUAL_N[0], "high": USUAL_N[1]}),
-        Finding("rs_at_zero", fitted & (params[:, 2] == 0.0)),
+        *_undetermined(r, params, ident),
         Finding("self_heating_corrected", heated & s.correct_self_heating, heat_fields),
         Finding("self_heating", heated & (not s.correct_self_heating), heat_fields),
     ]
 
 
-def _table(r: _Readings, params, errors, rms, heat_k, findings: list[Finding],
+def _table(r: _Readings, params, errors, rms, heat_k, ident: _Identified,
+           findings: list[Finding],
            s: ForwardSettings) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The device table (status, note and reason_code composed from the findings once)
     and the readings table; ``errors`` is (standard errors, correlations)."""
@@ -450,6 +570,8 @@ def _table(r: _Readings, params, errors, rms, heat_k, findings: list[Finding],
         "reference_temperature_C": s.reference_temperature - ZERO_CELSIUS,
         "eg_eV": s.activation_energy,
         "xti": s.xti,
+        "rs_fixed": ident.rs_fixed.astype(int),
+        "noise_V": np.where(np.isfinite(rms), ident.noise, np.nan),
     })
     readings = pd.DataFrame({
         "device": np.asarray(r.names, dtype=object)[r.groups.codes],
@@ -487,7 +609,7 @@ def fit_forward(points: pd.DataFrame, settings: ForwardSettings
         entered the fit), for the report and for single readings.
     """
     readings = _prepare(points, settings)
-    params, errors, rms = _solve(readings, settings)
+    params, errors, rms, ident = _solve(readings, settings)
     heating = _self_heating(readings, params, settings)
-    findings = _diagnose(readings, params, rms, heating, settings)
-    return _table(readings, params, errors, rms, heating[0], findings, settings)
+    findings = _diagnose(readings, params, rms, heating, ident, settings)
+    return _table(readings, params, errors, rms, heating[0], ident, findings, settings)

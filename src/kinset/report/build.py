@@ -46,9 +46,9 @@ def write_report(results: str | Path, application: str, out: str | Path,
     out.mkdir(parents=True, exist_ok=True)
     title = (f"{inputs.profile.title} "
              f"({inputs.profile.name}), reel {inputs.reel_id}")
-    lib, names = models_lib(inputs.sets, inputs.tables, inputs.reel, title, version)
+    lib, names, no_card = models_lib(inputs.sets, inputs.tables, inputs.reel, title, version)
     picks = pick_list(inputs.sets)
-    page = render_page(inputs, names, picks, lib, version)
+    page = render_page(inputs, names, picks, lib, version, no_card)
     write_text(out / "models.lib", lib, "ascii")
     write_csv(picks, out / "pick_list.csv")
     write_text(out / "report.html", page)

@@ -209,9 +209,18 @@ def _kept_section(inp: ReportInputs) -> str:
                      rows, {0}, "kept-sets") + "</section>")
 
 
-def _pick_section(picks: pd.DataFrame, names: dict[str, str]) -> str:
+def _model_cells(names: dict[str, str], no_card: dict[str, str]) -> dict[str, str]:
+    """The model column's cell of each placed part: its card's name in models.lib, or
+    why it has no card."""
+    cells = {d: f"<code>{e(n)}</code>" for d, n in names.items()}
+    cells.update({d: f'<span class="no-card">no card: {e(why)}</span>'
+                  for d, why in no_card.items()})
+    return cells
+
+
+def _pick_section(picks: pd.DataFrame, cells: dict[str, str]) -> str:
     rows = [[e(r.order), e(r.set), f'<span class="id">{e(r.device)}</span>', e(r.position),
-             f"<code>{e(names.get(r.device, ''))}</code>"] for r in picks.itertuples()]
+             cells.get(r.device, "")] for r in picks.itertuples()]
     return ('<section id="pick-list"><h2>Pick list</h2>'
             "<p>One pass along the tape: pocket positions ascending, parts without a position "
             "last. The same list is in <code>pick_list.csv</code>, the model cards in "
@@ -423,7 +432,7 @@ def _notes(dev: str, rows: dict[str, dict[str, dict]]) -> str:
     return "; ".join(out)
 
 
-def _sets_section(inp: ReportInputs, names: dict[str, str]) -> str:
+def _sets_section(inp: ReportInputs, cells: dict[str, str]) -> str:
     sets = inp.sets.copy()
     sets["device"] = sets["device"].astype(str)
     if not len(sets):
@@ -462,7 +471,7 @@ def _sets_section(inp: ReportInputs, names: dict[str, str]) -> str:
             members.append(plots.Member(dev, f, rd, c, cp, rc))
             member_rows.append([
                 f'<span class="id">{e(dev)}</span>', e(position_text(r.get("position"))),
-                f"<code>{e(names.get(dev, ''))}</code>",
+                cells.get(dev, ""),
                 e(_num(f and f.get("is_A"), "A")), e(_num(f and f.get("n"))),
                 e(_num(f and f.get("rs_ohm"), "\u03a9")), e(_num(c and c.get("cj0_F"), "F")),
                 e(_num(rc and rc.get("trr_s"), "s")), e(_notes(dev, rows))])
@@ -514,10 +523,12 @@ def _models_section(inp: ReportInputs, lib: str) -> str:
     example = ("* ---- set" + first[1]).strip() if len(first) > 1 else ""
     return ('<section id="models"><h2>SPICE models</h2>'
             "<p><code>models.lib</code> holds a diode <code>.model</code> card for every placed "
-            "part, grouped by set: IS, N, RS, CJO, VJ, M, TT and BV/IBV where they were measured, "
-            "EG and XTI as the fit assumed them, and TNOM, the temperature the parameters hold "
-            "at. What was not measured is named in a comment and left to the simulator's "
-            "defaults. The first set's cards:</p>"
+            "part with a fitted forward model, grouped by set: IS, N, RS, CJO, VJ, M, TT and "
+            "BV/IBV where they were measured, EG and XTI as the fit assumed them, and TNOM, the "
+            "temperature the parameters hold at. What was not measured is named in a comment "
+            "and left to the simulator's defaults. A part without a fitted IS and N (single "
+            "readings) gets no card, only a comment saying why (the model column of its set "
+            "says so too). The first set's cards:</p>"
             + (f"<pre>{e(example)}</pre>" if example else "<p>No part was placed.</p>")
             + "</section>")
 
@@ -588,17 +599,19 @@ and your organisation's procedures, and leave high-voltage work to people qualif
 
 
 def render_page(inp: ReportInputs, names: dict[str, str], picks: pd.DataFrame, lib: str,
-                version: str) -> str:
-    """The whole page as text."""
+                version: str, no_card: dict[str, str] | None = None) -> str:
+    """The whole page as text. ``names``: each placed part's card name in ``lib``;
+    ``no_card``: why each placed part without a card has none."""
     p = inp.profile
+    cells = _model_cells(names, no_card or {})
     title = f"{p.title} \u2013 reel {inp.reel_id} \u2013 kinset report"
     body = "\n".join([
         _header(inp, picks),
         _kept_section(inp),
-        _pick_section(picks, names),
+        _pick_section(picks, cells),
         _yield_section(inp),
         _distributions_section(inp),
-        _sets_section(inp, names),
+        _sets_section(inp, cells),
         _unmatched_section(inp),
         _models_section(inp, lib),
         _provenance_section(inp, version),

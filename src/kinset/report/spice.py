@@ -8,6 +8,9 @@ temperature from the same point the fit did. EG and XTI are the values the fit
 assumed for the reel's material (or reel.yaml's own); they are not measured, but
 IS only means what the fit meant together with them. Parameters that were not
 measured are left out, so the simulator's defaults apply, and a comment says which.
+A part without a fitted IS and N (single readings, a rejected or missing forward fit)
+gets no card at all, only a comment line saying why: a card of simulator defaults
+would make a simulation of its set fiction.
 
 The file is plain ASCII: device ids and notes appear in comments with anything
 outside printable ASCII replaced, so no id can break out of a comment line.
@@ -24,9 +27,13 @@ from __future__ import annotations
 import hashlib
 import math
 import re
+from dataclasses import dataclass, field
 
 import pandas as pd
 
+from kinset.fitting.forward import NOTES as FORWARD_NOTES
+from kinset.format import si
+from kinset.outcomes import first_clause, has_code
 from kinset.registry import NAMES
 from kinset.report.inputs import rows_by_device
 
@@ -95,9 +102,57 @@ def _usable(row) -> bool:
     return row is not None and str(row.get("status", "")) != "rejected"
 
 
-def device_parameters(device: str, rows: dict[str, dict | None], reel: dict
-                      ) -> tuple[dict[str, float], list[str]]:
-    """The card's parameters for one device, and comment lines on what is left out.
+@dataclass
+class DeviceModel:
+    """What ``models.lib`` says about one placed part.
+
+    ``params`` are the card's parameters and ``notes`` its comment lines on what the card
+    leaves out or assumes; ``no_card`` is why no card is written ('' when one is): a
+    card needs a fitted IS and N, never the simulator's defaults in their place.
+    ``fixed``: the lines written right above the card on a parameter the readings did
+    not determine (RS fixed at 0, a wide RS or N), each with why.
+    """
+
+    params: dict[str, float]
+    notes: list[str]
+    no_card: str = ""
+    fixed: list[str] = field(default_factory=list)   # what was fixed or is not determined, why
+
+
+def _forward_fit(fwd) -> tuple[dict[str, float], str]:
+    """IS, N, RS of a usable forward fit, or why there is none (a card needs IS and N)."""
+    if fwd is None:
+        return {}, "no forward data, so no fitted IS and N"
+    fit = {k: _finite(fwd, c) for k, c in (("IS", "is_A"), ("N", "n"), ("RS", "rs_ohm"))}
+    if _usable(fwd) and all(v is not None for v in fit.values()):
+        return fit, ""
+    note = first_clause(comment_text(fwd.get("note", ""))) or "no fitted forward model"
+    return {}, f"IS and N not fitted ({note})"
+
+
+def _undetermined(fwd: dict) -> list[str]:
+    """What the forward fit fixed or could not determine, and why (issue 15)."""
+    code = str(fwd.get("reason_code", "") or "")
+    out = []
+    lo, hi = _finite(fwd, "i_min_A"), _finite(fwd, "i_max_A")
+    span = f"{si(lo, 'A')} to {si(hi, 'A')}" if lo is not None and hi is not None else "?"
+    if has_code([code], "rs_not_determined")[0] or _finite(fwd, "rs_fixed") == 1:
+        noise = _finite(fwd, "noise_V")
+        why = FORWARD_NOTES.text("rs_not_determined", current=si(hi, "A") if hi else "?",
+                                 noise=si(noise, "V") if noise is not None else "?")
+        out.append(f"RS fixed at 0: {why}")
+    if has_code([code], "rs_imprecise")[0]:
+        out.append(f"RS not determined (its 95 % interval is wide, see forward.csv); the card "
+                   f"holds only over the measured {span}")
+    if has_code([code], "n_not_determined")[0]:
+        out.append(f"N and IS not determined (their 95 % intervals are wide, see forward.csv); "
+                   f"the card holds only over the measured {span}")
+    return [comment_text(x) for x in out]
+
+
+def device_model(device: str, rows: dict[str, dict | None], reel: dict) -> DeviceModel:
+    """The card's parameters for one device and comment lines on what is left out, or why
+    it gets no card.
 
     ``rows`` maps dataset name (forward, capacitance, recovery, leakage) to the
     device's row of that table as a dict, or None.
@@ -107,17 +162,12 @@ def device_parameters(device: str, rows: dict[str, dict | None], reel: dict
     # the card's parameters come from these datasets' fits: IS N RS; CJO VJ M; TT; BV
     fwd, cap = rows.get("forward"), rows.get("capacitance")
     rec, leak = rows.get("recovery"), rows.get("leakage")
-    tnom = None
-    fit = {k: _finite(fwd, c) for k, c in (("IS", "is_A"), ("N", "n"), ("RS", "rs_ohm"))} \
-        if _usable(fwd) else {}
-    if fit and all(v is not None for v in fit.values()):
-        params.update(fit)
-        tnom = _finite(fwd, "reference_temperature_C")
-    elif fwd is None:
-        notes.append("IS, N, RS: no forward data; the simulator's defaults apply")
-    else:
-        notes.append(f"IS, N, RS: not fitted ({comment_text(fwd.get('note', ''))}); "
-                     "the simulator's defaults apply")
+    fit, why = _forward_fit(fwd)
+    if why:
+        return DeviceModel({}, [], why)
+    params.update(fit)
+    fixed = _undetermined(fwd)
+    tnom = _finite(fwd, "reference_temperature_C")
     if _usable(cap) and all(_finite(cap, c) is not None for c in ("cj0_F", "vj_V", "m")):
         params.update(CJO=_finite(cap, "cj0_F"), VJ=_finite(cap, "vj_V"), M=_finite(cap, "m"))
         if params["M"] > M_LIMIT:
@@ -127,7 +177,6 @@ def device_parameters(device: str, rows: dict[str, dict | None], reel: dict
         if cp:
             notes.append(f"package capacitance CP = {cp:.4g} F is not part of the diode "
                          "model: put a capacitor in parallel")
-        tnom = tnom if tnom is not None else _finite(cap, "reference_temperature_C")
     else:
         notes.append("CJO, VJ, M: no usable C-V fit; no junction capacitance (CJO = 0)")
     tt = _finite(rec, "tt_s") if _usable(rec) else None
@@ -144,19 +193,20 @@ def device_parameters(device: str, rows: dict[str, dict | None], reel: dict
                      "no breakdown in the model")
     else:
         notes.append("BV: not measured; no breakdown in the model")
-    if "IS" in params:
-        eg, xti = _finite(fwd, "eg_eV"), _finite(fwd, "xti")
-        eg = eg if eg is not None else reel.get("eg_eV")
-        xti = xti if xti is not None else reel.get("xti")
-        if eg is not None and xti is not None:
-            params.update(EG=float(eg), XTI=float(xti))
-            notes.append(f"EG, XTI: the values the fit assumed for "
-                         f"{comment_text(reel.get('material', 'the material'))}, not measured")
+    eg, xti = _finite(fwd, "eg_eV"), _finite(fwd, "xti")
+    eg = eg if eg is not None else reel.get("eg_eV")
+    xti = xti if xti is not None else reel.get("xti")
+    if eg is not None and xti is not None:
+        params.update(EG=float(eg), XTI=float(xti))
+        notes.append(f"EG, XTI: the values the fit assumed for "
+                     f"{comment_text(reel.get('material', 'the material'))}, not measured")
     if tnom is None:
         tnom = reel.get("reference_temperature_C")
     if tnom is not None:
         params["TNOM"] = float(tnom)
-    return params, notes
+    return DeviceModel(params, notes, fixed=fixed)
+
+
 
 
 ORDER = ("IS", "N", "RS", "CJO", "VJ", "M", "TT", "BV", "IBV", "EG", "XTI", "TNOM")
@@ -183,8 +233,9 @@ def _position_text(pos) -> str:
 
 
 def models_lib(sets: pd.DataFrame, tables: dict[str, pd.DataFrame], reel: dict,
-               title: str, version: str) -> tuple[str, dict[str, str]]:
-    """The text of ``models.lib`` and the model name of each placed device."""
+               title: str, version: str) -> tuple[str, dict[str, str], dict[str, str]]:
+    """The text of ``models.lib``, the model name of each placed device that has a card,
+    and why each placed device without one has none."""
     rows = {k: rows_by_device(tables.get(k)) for k in NAMES}
     order = sets.sort_values(["set"], kind="stable")
     names = model_names(order["device"].astype(str))
@@ -197,18 +248,26 @@ def models_lib(sets: pd.DataFrame, tables: dict[str, pd.DataFrame], reel: dict,
         "* (each card sets TNOM itself, so '.options tnom' does not change its meaning).",
         "* Only measured parameters are given (EG, XTI: the fit's assumptions); others take",
         "* the simulator's defaults. Reverse leakage below breakdown is not modelled.",
+        "* A part without a fitted IS and N gets no card, only a comment line saying why.",
         "",
     ]
     n_sets = order["set"].nunique()
+    no_card: dict[str, str] = {}
     for s, block in order.groupby("set", sort=True):
         members = block["device"].astype(str).tolist()
         out.append(f"* ---- set {comment_text(s)} of {n_sets}: "
                    + ", ".join(names[d] for d in members))
         for dev, pos in zip(members, block["position"]):
-            params, notes = device_parameters(dev, {k: rows[k].get(dev) for k in rows}, reel)
+            model = device_model(dev, {k: rows[k].get(dev) for k in rows}, reel)
             out.append(f"* device {comment_text(dev)}, {_position_text(pos)}, set {comment_text(s)}")
-            out += [f"*   {n}" for n in notes]
-            out.append(model_card(names[dev], params).rstrip("\n"))
+            if model.no_card:
+                no_card[dev] = model.no_card
+                out.append(f"* no card for {names[dev]}: {comment_text(model.no_card)}")
+                continue
+            out += [f"*   {n}" for n in model.notes]
+            out += [f"* {names[dev]}: {x}" for x in model.fixed]
+            out.append(model_card(names[dev], model.params).rstrip("\n"))
         out.append("")
     out.append("* end of models")
-    return "\n".join(out) + "\n", names
+    carded = {d: n for d, n in names.items() if d not in no_card}
+    return "\n".join(out) + "\n", carded, no_card
