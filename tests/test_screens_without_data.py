@@ -305,3 +305,28 @@ def test_the_workflow_config_reaches_the_match_rule(meter_only, tmp_path):
     config["waive_screens"] = ["ideality"]
     with pytest.raises(InputError, match="cannot be waived"):
         make_plan(config).notices()
+
+
+def test_partners_are_judged_as_the_sets_were_formed(meter_only, capsys):
+    """kinset partners after a waived match: the same screens are skipped (summary.json
+    names them), so a part is not refused for the leakage data the reel never had."""
+    reel, results = meter_only
+    if not (results / "devices.csv").is_file():
+        extract(capsys, reel, results)
+    capsys.readouterr()
+    assert main(["partners", "--results", str(results), "--application", APP,
+                 "--device", "M001", "--all"]) == 2      # no match yet: refused, with why
+    assert "no leakage data" in capsys.readouterr().err
+    kinset(capsys, "match", "--results", results, "--application", APP,
+           "-o", results / APP, "--waive-screens", "reverse_current")
+    capsys.readouterr()
+    assert main(["partners", "--results", str(results), "--application", APP,
+                 "--device", "M001", "--all", "--top", "3"]) == 0
+    listed = capsys.readouterr().out.splitlines()
+    best = listed[2].split()[0]
+    # its difference at 1 mA, recomputed from values.csv, is the one listed
+    values = read_result(results / APP / "values.csv").set_index("device")
+    diff = abs(values.loc[best, "forward_voltage_at_1mA"] - values.loc["M001", "forward_voltage_at_1mA"])
+    header = listed[1].split()
+    shown = float(listed[2].split()[header.index("forward_voltage_at_1mA_difference_V")])
+    assert shown == pytest.approx(diff, rel=1e-3, abs=1e-7)

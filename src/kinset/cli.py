@@ -120,14 +120,15 @@ def _cmd_partners(args) -> None:
     from kinset.matching.partners import partner_table
     from kinset.matching.profile import load_profile
     from kinset.matching.run import read_results
-    from kinset.matching.upkeep import unplaced_parts
+    from kinset.matching.upkeep import as_matched, unplaced_parts
     tables, devices, reel = read_results(args.results)
     first = next(iter(reel.get("applications", [])), None)
     application = args.application or (first["profile"] if isinstance(first, dict) else first)
     if application is None:
         raise InputError("give --application (the reel lists no applications)")
     free = None if args.all else unplaced_parts(args.results, devices) + [args.device]
-    table = partner_table(tables, devices, load_profile(application), args.device,
+    profile = as_matched(args.results, application, load_profile(application))
+    table = partner_table(tables, devices, profile, args.device,
                           reel.get("accuracy"), args.top, available=free)
     _print_table(f"best {'' if args.all else 'free '}partners for {args.device} under "
                  f"{application}:", table)
