@@ -1,6 +1,8 @@
 # kinset workflow for one reel: extraction per dataset, devices.csv, matching per application.
 #   snakemake --cores 2                              # the demo reel in data_demo/
 #   snakemake --cores 2 --config reel=PATH           # another reel
+import sys
+
 from snakemake.utils import min_version, validate
 
 from kinset.io.config import schema_path
@@ -12,6 +14,9 @@ min_version("8.0")
 validate(config, str(schema_path("workflow")), set_default=True)
 PLAN = make_plan(config)
 OUT = str(PLAN.out)
+# What the reel lacks for an application, and how to proceed: said at once.
+for _notice in PLAN.notices():
+    print(_notice, file=sys.stderr)
 
 wildcard_constraints:
     dataset="|".join(NAMES),

@@ -58,6 +58,7 @@ class PageResult:
     screenshot: bytes = b""
     title: str = ""
     height: int = 0
+    value: object = None     # the result of ``expression``, if one was given
 
 
 class _Pipe:
@@ -124,9 +125,11 @@ def _errors(events: list[dict]) -> list[str]:
 
 
 def open_page(url: str, width: int = 1280, height: int = 900, timeout: float = 40.0,
-              shot_height: int = 3000) -> PageResult:
+              shot_height: int = 3000, expression: str | None = None) -> PageResult:
     """Load ``url`` in headless Chromium; return its console errors and a PNG of the top
-    ``shot_height`` pixels of the page (or all of it, if shorter)."""
+    ``shot_height`` pixels of the page (or all of it, if shorter), and the value of a
+    JavaScript ``expression`` evaluated by the browser on the loaded page (layout
+    questions: where an element is)."""
     exe = find_chromium()
     if exe is None:
         raise BrowserError("chromium not found")
@@ -170,6 +173,11 @@ def open_page(url: str, width: int = 1280, height: int = 900, timeout: float = 4
                          session=session, timeout=timeout)
         title = pipe.call("Runtime.evaluate", {"expression": "document.title",
                                                "returnByValue": True}, session=session)
+        value = None
+        if expression is not None:
+            value = pipe.call("Runtime.evaluate", {"expression": expression,
+                                                   "returnByValue": True}, session=session)
+            value = value.get("result", {}).get("value")
         time.sleep(0.2)    # late console messages of the load
         pipe.events += _drain(pipe)
         try:
@@ -177,7 +185,7 @@ def open_page(url: str, width: int = 1280, height: int = 900, timeout: float = 4
         except BrowserError:
             pass
         return PageResult(_errors(pipe.events), base64.b64decode(shot["data"]),
-                          title.get("result", {}).get("value", ""), full_height)
+                          title.get("result", {}).get("value", ""), full_height, value)
     finally:
         for fd in (to_child_w, from_child_r):
             try:

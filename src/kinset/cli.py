@@ -76,10 +76,12 @@ def _print_warnings(profile) -> None:
 def _cmd_match(args) -> None:
     from kinset.matching.run import run_match, summary_line
     names = [a.strip() for a in args.application.split(",") if a.strip()]
+    waive = tuple(q.strip() for q in (args.waive_screens or "").split(",") if q.strip())
     after = list(args.after or [])
     for name in names:      # in the order given: each after the ones before it
         out = Path(args.output) if len(names) == 1 else Path(args.output) / Path(name).stem
-        result = run_match(args.results, name, out, args.ledger, after, args.sets_wanted)
+        result = run_match(args.results, name, out, args.ledger, after, args.sets_wanted,
+                           waive, lambda text: print(text, file=sys.stderr, flush=True))
         after.append(out)
         _print_warnings(result.profile)
         print(summary_line(result.summary), file=sys.stderr)
@@ -128,14 +130,15 @@ def _cmd_partners(args) -> None:
     from kinset.matching.partners import partner_table
     from kinset.matching.profile import load_profile
     from kinset.matching.run import read_results
-    from kinset.matching.upkeep import unplaced_parts
+    from kinset.matching.upkeep import as_matched, unplaced_parts
     tables, devices, reel = read_results(args.results)
     first = next(iter(reel.get("applications", [])), None)
     application = args.application or (first["profile"] if isinstance(first, dict) else first)
     if application is None:
         raise InputError("give --application (the reel lists no applications)")
     free = None if args.all else unplaced_parts(args.results, devices) + [args.device]
-    table = partner_table(tables, devices, load_profile(application), args.device,
+    profile = as_matched(args.results, application, load_profile(application))
+    table = partner_table(tables, devices, profile, args.device,
                           reel.get("accuracy"), args.top, available=free)
     _print_table(f"best {'' if args.all else 'free '}partners for {args.device} under "
                  f"{application}:", table)
@@ -241,6 +244,10 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--after", nargs="+", help="match folders of applications served before "
                    "this one: their parts are not offered")
     a.add_argument("--sets-wanted", type=int, help="stop at this many sets (kept ones count)")
+    a.add_argument("--waive-screens", metavar="QUANTITY[,...]", help="screened quantities "
+                   "(e.g. reverse_current) whose screens are skipped while the reel has no "
+                   "data for them at all; every set formed so is marked unscreened "
+                   "(as the profile key waive_screens)")
     a.set_defaults(func=_cmd_match)
 
     _ledger_parsers(sub)

@@ -57,6 +57,8 @@ class Plan:
     # Touchstone files that capacitance/index.csv does not list.
     vna: dict[str, dict] = field(default_factory=dict)
     vna_unlisted: list[str] = field(default_factory=list)
+    # screened quantities waived for every application (--config waive_screens=...)
+    waive_screens: tuple[str, ...] = ()
 
     @property
     def out(self) -> Path:
@@ -130,7 +132,25 @@ class Plan:
         if self.earlier(application):
             options += " --after " + " ".join(shlex.quote(f) for f in self.earlier(application))
         wanted = self.sets_wanted.get(application)
+        if self.waive_screens:
+            options += " --waive-screens " + shlex.quote(",".join(self.waive_screens))
         return options + (f" --sets-wanted {wanted}" if wanted is not None else "")
+
+    def notices(self) -> list[str]:
+        """For each application, what the reel lacks and how to proceed (said when the
+        workflow starts; :mod:`kinset.matching.coverage`). A waiver of a match criterion
+        is an error here, before any job runs."""
+        from kinset.matching.coverage import gaps, notice
+        from kinset.matching.profile import load_profile
+        out = []
+        for name, path in self.applications.items():
+            profile = load_profile(path)
+            if self.waive_screens:
+                profile = profile.waiving(self.waive_screens, "config waive_screens")
+            said = notice(name, [g.as_dict() for g in gaps(profile, set(self.datasets))])
+            if said is not None:
+                out.append(said.text())
+        return out
 
     @property
     def ledger(self) -> str:
@@ -146,6 +166,9 @@ def make_plan(config: dict) -> Plan:
     reel = load_reel(config["reel"])
     plan = Plan(reel=reel, results=Path(config["results"]),
                 max_jobs=int(config["max_jobs_per_dataset"]))
+    waive = config.get("waive_screens") or ()
+    waive = waive.split(",") if isinstance(waive, str) else waive
+    plan.waive_screens = tuple(q.strip() for q in waive if q.strip())
     for dataset in NAMES:
         files = reel.dataset_files(dataset)
         groups: dict[str, list[str]] = {}

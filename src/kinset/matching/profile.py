@@ -7,7 +7,7 @@ currents is four dimensions), each with a tolerance in SI and a weight.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from kinset.errors import InputError
@@ -73,6 +73,9 @@ class Profile:
     # Tolerances outside the plausible range of their quantity (TOLERANCE_RANGES): each
     # a sentence naming the key, its line and the likely unit. Warnings, never errors.
     warnings: list[str] = field(default_factory=list)
+    # screened quantities the user stated may go unscreened while the reel has no data
+    # for them at all (key waive_screens, or kinset match --waive-screens)
+    waive_screens: tuple[str, ...] = ()
 
     @classmethod
     def from_settings(cls, name: str, path: Path, settings: dict) -> "Profile":
@@ -81,12 +84,27 @@ class Profile:
                    description=str(settings.get("description") or ""),
                    set_size=int(settings["set_size"]), goal=str(settings["goal"]),
                    guard_band=str(settings["guard_band"]),
-                   operating_temperature_C=float(settings["operating_temperature_C"]))
+                   operating_temperature_C=float(settings["operating_temperature_C"]),
+                   waive_screens=tuple(settings.get("waive_screens") or ()))
 
     @property
     def temperature(self) -> float:
         """Operating junction temperature [K]."""
         return self.operating_temperature_C + ZERO_CELSIUS
+
+    def waiving(self, quantities, where: str) -> "Profile":
+        """This profile with the screens on ``quantities`` waived as well (from the command
+        line or the workflow config, named ``where`` in an error); a quantity the profile
+        does not screen is no waiver of it (:func:`check_waiver`)."""
+        names = tuple(q for q in quantities if q not in self.waive_screens)
+        unknown = [q for q in names if q not in QUANTITIES]
+        if unknown:
+            raise InputError(f"{where}: unknown quantity '{unknown[0]}' (a screened quantity: "
+                             f"{', '.join(QUANTITIES)})")
+        check_waiver(self, names, where, only_screened=True)
+        screened = {s.quantity for s in self.screens}
+        return replace(self, waive_screens=self.waive_screens +
+                       tuple(q for q in names if q in screened))
 
     @property
     def datasets(self) -> set[str]:
@@ -261,4 +279,24 @@ def load_profile(name_or_path: str, base: Path | None = None) -> Profile:
         for cond in _conditions(entry, q, where, path, lines):
             profile.screens.append(Screen(entry["quantity"], cond, limits.get("min"),
                                           limits.get("max"), q.unit))
+    check_waiver(profile, profile.waive_screens, (path, lines.get(("waive_screens",)),
+                                                  "waive_screens"))
     return profile
+
+
+def check_waiver(profile: Profile, quantities, where, only_screened: bool = False) -> None:
+    """Refuse a waiver of a match criterion, and (in a profile) of a quantity it does not
+    screen. ``where``: the place an error names (file, line, key; or an option's name).
+    ``only_screened``: names the profile neither screens nor matches on are left alone
+    (one command-line waiver serves several applications)."""
+    screened = {s.quantity for s in profile.screens}
+    matched = {d.quantity for d in profile.dimensions}
+    place, key = (where, "waive_screens") if isinstance(where, tuple) else ((), where)
+    for q in quantities:
+        if q in matched and q not in screened:
+            raise InputError(f"{key}: {q} is a match criterion of {profile.name}, not "
+                             f"a screen; a match criterion cannot be waived (a set cannot be "
+                             f"matched on what was not measured)", *place)
+        if q not in screened and not only_screened:
+            raise InputError(f"{key}: {profile.name} has no screen on {q} "
+                             f"(its screens: {', '.join(sorted(screened)) or 'none'})", *place)

@@ -6,7 +6,7 @@ This is what ``kinset match`` and the workflow's match rule call.
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -16,6 +16,7 @@ from scipy.spatial import cKDTree
 from kinset.errors import InputError
 from kinset.io.output import read_result, write_csv, write_text
 from kinset.matching.allocation import Allocation, tape_order
+from kinset.matching.coverage import gaps, notice, skipped_screens
 from kinset.matching.criteria import (column_suffix, effective_tolerance, evaluate,
                                      format_amount, normalise, pair_guard, spread,
                                      spread_columns)
@@ -73,21 +74,34 @@ class Candidates:
     z: np.ndarray
     accuracy_note: str = ""
     accuracy: dict = field(default_factory=dict)   # reel.yaml accuracy as used
+    unscreened: tuple[str, ...] = ()    # screens skipped (waived, no data in the reel)
+    missing: list = field(default_factory=list)    # coverage.Gap.as_dict of each gap
+
+    @property
+    def unscreened_text(self) -> str:
+        """sets.csv's ``unscreened``: the screens not applied, joined by ';'."""
+        return ";".join(self.unscreened)
 
     def subset(self, keep: np.ndarray) -> "Candidates":
         """The candidates where ``keep`` holds (the same evaluation and tolerances)."""
-        return Candidates(self.evaluation, self.tolerance, self.devices[keep], self.raw[keep],
-                          self.z[keep], self.accuracy_note, self.accuracy)
+        return replace(self, devices=self.devices[keep], raw=self.raw[keep], z=self.z[keep])
 
 
 def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
                accuracy: dict | None = None) -> Candidates:
-    """Evaluate, screen and guard every device; the rest are candidates for sets."""
+    """Evaluate, screen and guard every device; the rest are candidates for sets.
+
+    A screen the profile waives (``waive_screens``) is skipped only when the reel has no
+    table of its dataset at all (:mod:`kinset.matching.coverage`); it is then named in
+    ``unscreened``."""
     accuracy_note = ""
     if accuracy is None:
         accuracy = _default_accuracy()
         accuracy_note = "reel accuracy not given: the schema's default instrument accuracy was used"
-    ev = evaluate(profile, tables, devices, accuracy)
+    found = gaps(profile, {n for n in NAMES if n in tables})
+    skipped = skipped_screens(found)
+    applied = [s for s in profile.screens if s not in skipped]
+    ev = evaluate(replace(profile, screens=applied), tables, devices, accuracy)
     dims = profile.dimensions
     eff = {d.name: effective_tolerance(d, ev.guards[d.name], ev.typical[d.name]) for d in dims}
     impossible = [d for d in dims if not eff[d.name] > 0]
@@ -102,7 +116,8 @@ def candidates(tables: dict[str, pd.DataFrame], devices: list[str], profile: Pro
         if len(cand) else np.empty((0, len(dims)))
     z = np.column_stack([normalise(raw[:, j], d, eff[d.name]) for j, d in enumerate(dims)]) \
         if len(cand) else np.empty((0, len(dims)))
-    return Candidates(ev, eff, cand, raw, z, accuracy_note, accuracy)
+    return Candidates(ev, eff, cand, raw, z, accuracy_note, accuracy,
+                      tuple(s.name for s in skipped), [g.as_dict() for g in found])
 
 
 def set_table(found: list, c: Candidates, dims, first: int = 1) -> pd.DataFrame:
@@ -111,14 +126,14 @@ def set_table(found: list, c: Candidates, dims, first: int = 1) -> pd.DataFrame:
     rows = []
     for s, members in enumerate(found, start=first):
         spreads = spread_columns(c.raw[members], dims, c.tolerance)
-        rows += [{"set": s, "device": c.devices[m], **spreads, "state": "new", "check": ""}
-                 for m in members]
+        rows += [{"set": s, "device": c.devices[m], **spreads, "state": "new", "check": "",
+                  "unscreened": c.unscreened_text} for m in members]
     return pd.DataFrame(rows, columns=set_columns(dims))
 
 
 def set_columns(dims) -> list[str]:
     spreads = [f"{d.name}_{w}{column_suffix(d)}" for d in dims for w in ("spread", "margin")]
-    return ["set", "device"] + spreads + ["state", "check"]
+    return ["set", "device"] + spreads + ["state", "check", "unscreened"]
 
 
 def kept_tolerance(profile: Profile, raw: np.ndarray, u: np.ndarray) -> dict:
@@ -162,8 +177,8 @@ def kept_table(alloc: Allocation, c: Candidates, profile: Profile) -> pd.DataFra
         elif any(spread(raw[:, j], d) > tolerance[d.name] * (1 + 1e-9)
                  for j, d in enumerate(dims)):
             check = "out_of_tolerance"
-        rows += [{"set": number, "device": m, **spreads, "state": "kept", "check": check}
-                 for m in members]
+        rows += [{"set": number, "device": m, **spreads, "state": "kept", "check": check,
+                  "unscreened": c.unscreened_text} for m in members]
     return pd.DataFrame(rows, columns=set_columns(dims))
 
 
@@ -207,9 +222,11 @@ def values_table(c: Candidates, profile: Profile, unmatched: pd.DataFrame) -> pd
               if s.name not in {n for n, _ in named}]
     for name, quantity in named:
         frame = ev.values if name in ev.values else ev.screened
-        v = frame[name].to_numpy(dtype=float)
+        v = frame[name].to_numpy(dtype=float) if name in frame \
+            else np.full(len(ev.devices), np.nan)          # a screen skipped: no value
         out[name] = v
-        out[f"{name}_u"] = ev.u[name].to_numpy(dtype=float)
+        out[f"{name}_u"] = ev.u[name].to_numpy(dtype=float) if name in ev.u \
+            else np.full(len(ev.devices), np.nan)
     why = unmatched.set_index("device")
     for col in ("reason_code", "reason"):
         out[col] = why[col].astype(object).reindex(ev.devices).fillna("").to_numpy()
@@ -307,6 +324,8 @@ def _summary(profile: Profile, c: Candidates, pool: Candidates, alloc: Allocatio
         "guard_band": {d.name: ev.guards[d.name] for d in dims},
         "tolerance_used": {d.name: c.tolerance[d.name] for d in dims},
     }
+    summary["unscreened"] = list(c.unscreened)
+    summary["missing_data"] = c.missing
     if c.accuracy_note:
         summary["note"] = c.accuracy_note
     return summary
@@ -352,17 +371,26 @@ def write_match(result: MatchResult, folder: str | Path, positions: dict | None 
 
 def run_match(results: str | Path, application: str, out: str | Path,
               ledger: str | Path | None = None, after: list[str | Path] = (),
-              sets_wanted: int | None = None) -> MatchResult:
+              sets_wanted: int | None = None, waive: tuple[str, ...] = (),
+              notify=None) -> MatchResult:
     """One application on a results folder, written to ``out``.
 
     ``ledger``: the reel's ``ledger.csv`` (default: the one of the reel folder the results
     came from, if it is known and exists); ``after``: the match folders of the
-    applications before this one, whose placed parts it may not use.
+    applications before this one, whose placed parts it may not use; ``waive``: screened
+    quantities waived from the command line (as the profile's ``waive_screens``);
+    ``notify``: called, before matching, with the text of what the reel lacks and how to
+    proceed (:func:`kinset.matching.coverage.notice`), if it lacks anything.
     """
     from kinset.io.ledger import check_ledger, read_ledger
     from kinset.matching.allocation import allocate, earlier_placements
     tables, devices, reel = read_results(results)
     profile = load_profile(application)
+    if waive:
+        profile = profile.waiving(waive, "--waive-screens")
+    said = notice(profile.name, [g.as_dict() for g in gaps(profile, set(tables))])
+    if said is not None and notify is not None:
+        notify(said.text())
     if ledger is None:
         ledger = reel_ledger_path(results)
     book = read_ledger(ledger) if ledger is not None else None

@@ -141,7 +141,7 @@ def replacement(results: str | Path, application: str, number: int, device: str,
     if not remaining:
         raise InputError(f"{application} set {number} has no member left to match against")
     tables, devices, settings = read_results(results)
-    profile = load_profile(_profile_of(results, application))
+    profile = as_matched(results, application, load_profile(_profile_of(results, application)))
     if len(remaining) >= profile.set_size:
         raise InputError(f"{application} set {number} is whole without {device} (its members: "
                          f"{', '.join(remaining)}); nothing to replace", column="--device")
@@ -167,6 +167,22 @@ def apply_replacement(book: Ledger, application: str, number: int, device: str,
              if d not in book.by_device() or book.by_device()[d].state != "kept"]
     write_ledger(book.with_rows(rows))
     return ", ".join(new)
+
+
+def as_matched(results: str | Path, application: str, profile):
+    """``profile`` with the screens its last match skipped (``summary.json``'s
+    ``unscreened``: waived, and no data in the reel) waived again, so that partners and
+    replacements are judged as the sets were formed; still only while the reel has no
+    data for them (:func:`kinset.matching.run.candidates`)."""
+    path = Path(results) / Path(application).stem / "summary.json"
+    if not path.is_file():
+        return profile
+    try:
+        skipped = json.loads(path.read_text(encoding="utf-8")).get("unscreened") or []
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"not valid JSON: {exc}", path) from None
+    quantities = [s.quantity for s in profile.screens if s.name in skipped]
+    return profile.waiving(quantities, f"{path} unscreened") if quantities else profile
 
 
 def _profile_of(results: str | Path, application: str) -> str:

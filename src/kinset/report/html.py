@@ -20,6 +20,7 @@ import pandas as pd
 from kinset import quantities as qty
 from kinset.format import si
 from kinset.outcomes import has_code
+from kinset.matching.coverage import notice
 from kinset.matching.profile import dimension_name
 from kinset.quantities import QUANTITIES
 from kinset.registry import BY_NAME, NAMES
@@ -69,6 +70,9 @@ pre { background: var(--band); border: 1px solid var(--rule); padding: 8px 10px;
 .meter .guard { position: absolute; top: -3px; bottom: -3px; width: 0; border-left: 2px solid var(--warn); }
 .set { border-left: 3px solid var(--accent); padding-left: 12px; margin: 18px 0; }
 .cautions { border: 1.5px solid var(--warn); padding: 8px 14px; }
+.gaps { border: 1.5px solid var(--warn); background: #fdf4f0; padding: 6px 14px; margin: 10px 0; }
+.gaps ul { margin: 2px 0 6px; }
+.unscreened { color: var(--warn); font-weight: 600; }
 figure { margin: 8px 0; }
 figcaption { font-size: 0.85em; color: var(--muted); }
 svg.plot { width: 100%; max-width: 900px; height: auto; display: block; }
@@ -174,7 +178,31 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
             + f". Pull the {len(picks)} parts of the pick list in tape order and put each "
               "into the bin of its set; why every other part was left out is listed under "
               "Unmatched parts.</p>"
+            + _gaps_box(inp)
             + f'<ul class="facts">{lis}</ul><nav>{nav}</nav></header>')
+
+
+def _unscreened_text(inp: ReportInputs, names) -> str:
+    """The screens named (sets.csv's ``unscreened``, summary.json's) in words."""
+    words = {s.name: s.describe() for s in inp.profile.screens}
+    return ", ".join(words.get(n, n) for n in names)
+
+
+def _gaps_box(inp: ReportInputs) -> str:
+    """What the reel lacks for this profile and how to proceed (the match's notice,
+    :func:`kinset.matching.coverage.notice`), and the screens not applied."""
+    s = inp.summary
+    said = notice(inp.profile.name, s.get("missing_data") or [])
+    if said is None:
+        return ""
+    skipped = s.get("unscreened") or []
+    head = (f'<p class="unscreened">unscreened: {e(_unscreened_text(inp, skipped))}. Every '
+            "set below was formed without this screen (waived: the reel has no data for it); "
+            "sets.csv says so in its column unscreened.</p>") if skipped else ""
+    items = "".join(f"<li>{e(i)}</li>" for i in said.items)
+    ways = "".join(f"<li>{e(w)}</li>" for w in said.proceed)
+    return (f'<div class="gaps" id="missing-data">{head}<p><b>{e(said.headline)}</b></p>'
+            f"<ul>{items}</ul><p><b>How to proceed</b></p><ul>{ways}</ul></div>")
 
 
 CHECKS = {
@@ -270,7 +298,7 @@ def _reason_groups(un: pd.DataFrame) -> pd.DataFrame:
     cols = ["stage", "code", "criterion", "kind", "n"]
     if not len(un):
         return pd.DataFrame(columns=cols)
-    text = lambda c: un[c].fillna("").astype(str).to_numpy()   # noqa: E731
+    text = lambda c: un[c].astype(object).fillna("").astype(str).to_numpy()   # noqa: E731
     keys = pd.DataFrame({"stage": text("stage"), "code": text("reason_code"),
                          "criterion": text("criterion"), "reason": un["reason"].to_numpy()})
     grouped = keys.groupby(["stage", "code", "criterion"], sort=False)
@@ -479,7 +507,7 @@ def _sets_section(inp: ReportInputs, cells: dict[str, str]) -> str:
                                f"set {s}: forward, C-V and recovery overlays")
         first = block.to_dict("records")[0]
         parts.append(
-            f'<section class="set" id="set-{e(s)}"><h3>Set {e(s)}</h3>'
+            f'<section class="set" id="set-{e(s)}"><h3>Set {e(s)}{_set_mark(inp, first)}</h3>'
             + _table(["device", "position", "model", "IS", "N", "RS", "CJO", "trr", "notes"],
                      member_rows, {1, 3, 4, 5, 6, 7})
             + _criteria_table(inp, first)
@@ -498,13 +526,21 @@ def _sets_section(inp: ReportInputs, cells: dict[str, str]) -> str:
                     worst.append(float(v) / tol)
             members = ", ".join(f'<span class="id">{e(dv)}</span> ({e(position_text(ps))})'
                                 for dv, ps in zip(block["device"], block["position"]))
-            trows.append([f'<span id="set-{e(s)}">{e(s)}</span>', members,
+            trows.append([f'<span id="set-{e(s)}">{e(s)}</span>{_set_mark(inp, first)}', members,
                           f"{max(worst) * 100:.0f} %" if worst else "\u2013"])
         parts.append(f"<h3>Sets {e(rest[0])}\u2013{e(rest[-1])}</h3>"
                      + _table(["set", "members (position)", "largest spread / tolerance"],
                               trows, {2}, "more-sets"))
     parts.append("</section>")
     return "\n".join(parts)
+
+
+def _set_mark(inp: ReportInputs, row) -> str:
+    """Beside a set: the screens its members were not put through (sets.csv unscreened)."""
+    names = [n for n in str(row.get("unscreened") or "").split(";")
+             if n and n != "nan"]
+    return (f' <span class="unscreened">unscreened: {e(_unscreened_text(inp, names))}</span>'
+            if names else "")
 
 
 def _unmatched_section(inp: ReportInputs) -> str:
