@@ -268,3 +268,24 @@ def test_cli_parse_then_extract_equals_direct_extraction(tmp_path):
     assert list(table["device"]) == list(direct["device"]) == list(parts["device"])
     np.testing.assert_allclose(table[["cj0_F", "vj_V", "m"]], direct[["cj0_F", "vj_V", "m"]],
                                rtol=1e-8)
+
+
+def test_vj_and_m_from_a_narrow_bias_range_are_not_determined():
+    """The depletion law (Sze & Ng, eq. 2.3 generalised: C = CJO/(1 + VR/VJ)^M) sampled with
+    0.1 % noise: over 0–10 V VJ and M are determined; over 4–5 V they trade off against each
+    other (standard errors above VJ_REL_SE / M_SE), and the row says so with its code while
+    C inside that range stays within 0.5 % of the law."""
+    from kinset.fitting.capacitance import M_SE, VJ_REL_SE
+    wide = np.linspace(0.0, 10.0, 11)
+    narrow = np.linspace(4.0, 5.0, 6)
+    curves = {"W": (wide, nagel(wide, 2e-12, 0.7, 0.45)),
+              "T": (narrow, nagel(narrow, 2e-12, 0.7, 0.45))}
+    table = fit_capacitance(cv_points(curves, 1e-3, 4), SETTINGS)[0].set_index("device")
+    assert "vj_m_not_determined" not in table.loc["W", "reason_code"]
+    assert table.loc["W", "vj_V_se"] / table.loc["W", "vj_V"] <= VJ_REL_SE
+    t = table.loc["T"]
+    assert "vj_m_not_determined" in t["reason_code"].split(";")
+    assert t["vj_V_se"] / t["vj_V"] > VJ_REL_SE or t["m_se"] > M_SE
+    assert "4–5 V" in t["note"]
+    c = nagel(4.5, t["cj0_F"], t["vj_V"], t["m"])
+    assert c == pytest.approx(nagel(4.5, 2e-12, 0.7, 0.45), rel=5e-3)

@@ -140,3 +140,19 @@ def test_written_cards_load_in_ngspice_and_give_back_their_parts(placed):
     print("largest |V(card) - V(part)| per part [V]:", worst)
     # ngspice 39 (Debian): the written card reproduces the ngspice-simulated part.
     assert max(worst.values()) < CARD_TOL_V, worst
+
+
+def test_a_card_says_when_vj_and_m_were_not_determined():
+    """The C–V fit's `vj_m_not_determined` (biases 4–5 V only) reaches the card as a line
+    above it naming the bias range the C(V) law holds over; a determined fit adds none."""
+    from kinset.report.spice import device_model
+    fwd = {"status": "ok", "note": "", "reason_code": "fitted", "is_A": 2.5e-9, "n": 1.8,
+           "rs_ohm": 0.6, "i_min_A": 1e-5, "i_max_A": 1e-2, "reference_temperature_C": 25.0,
+           "eg_eV": 1.11, "xti": 3.0, "rs_fixed": 0}
+    cap = {"status": "warning", "note": "", "reason_code": "fitted;vj_m_not_determined",
+           "cj0_F": 2e-12, "vj_V": 0.7, "m": 0.45, "vr_min_V": 4.0, "vr_max_V": 5.0}
+    model = device_model("X", {"forward": fwd, "capacitance": cap}, {})
+    assert any("VJ and M not determined" in line and "4 to 5 V" in line for line in model.fixed)
+    cap["reason_code"] = "fitted"
+    model = device_model("X", {"forward": fwd, "capacitance": cap}, {})
+    assert not any("VJ and M" in line for line in model.fixed)

@@ -219,8 +219,9 @@ def _serve_readings(devices, readings, current, temperature, fitted, ev: Evaluat
         ev.serve(index[dev], row["v"], row["u"])
     for dev in want - set(served.index):
         i = index[dev]
+        window = f"{temperature - ZERO_CELSIUS:.3g} °C ± {READING_TEMPERATURE_K:g} K"
         ev.refuse(i, "no_reading", note=ev.reason[i], condition=si(current, "A"),
-                  temperature=f"{temperature - ZERO_CELSIUS:.3g} °C")
+                  temperature=window)
 
 
 def forward_voltage_tempco(devices: pd.DataFrame, current: float,

@@ -44,6 +44,11 @@ POOR_FIT = 1.0                # weighted rms residual (in units of the accuracy)
 SOURCES_DISAGREE = 1.0        # mean difference of C–V and VNA points, in accuracies, that warns
 TEMPERATURE_WARN_K = 5.0      # [K] points this far from the reference are not corrected
 SAME_BIAS_V = 1e-6            # [V] biases closer than this count as one
+# VJ and M trade off against each other over a narrow bias range: not determined when VJ's
+# relative standard error exceeds VJ_REL_SE or M's standard error exceeds M_SE (about a
+# ±20 % / ±0.1 interval at 95 %). Over the demo's 0–10 V they are below 4.3 % and 0.009.
+VJ_REL_SE = 0.10
+M_SE = 0.05
 
 
 @dataclass
@@ -350,6 +355,8 @@ def _diagnose(pt: _Points, fit: _Fit, st: dict, s: CapacitanceSettings) -> list[
     with np.errstate(invalid="ignore"):
         vj_bound = fitted & ((par[:, 1] <= lo[1] + 1e-9) | (par[:, 1] >= hi[1] - 1e-9))
         m_odd = fitted & ((par[:, 2] <= M_BOUNDS[0] + 1e-9) | (par[:, 2] > USUAL_M_MAX))
+        se = fit.se
+        loose = fitted & ~vj_bound & ~poor & ~((se[:, 1] <= VJ_REL_SE) & (se[:, 2] <= M_SE))
         disagree = both & (np.abs(st["mean_vna"] - st["mean_cv"]) > SOURCES_DISAGREE)
     src = pt.frame["source"].astype(str).to_numpy()
     notes = pt.frame["note"].astype(str).to_numpy()
@@ -388,6 +395,9 @@ def _diagnose(pt: _Points, fit: _Fit, st: dict, s: CapacitanceSettings) -> list[
                                           "vj_min": s.vj_range[0], "vj_max": s.vj_range[1]}),
         Finding("m_unusual", m_odd, {"m": par[:, 2], "m_min": M_BOUNDS[0],
                                      "m_max": USUAL_M_MAX}),
+        Finding("vj_m_not_determined", loose, {
+            "low": st["vr_min"], "high": st["vr_max"],
+            "vj_rel": lambda d: 100 * se[d, 1], "m_se": se[:, 2]}),
         Finding("poor_fit", poor & (st["cv_names"] <= 1), rms),
         Finding("touchstone_rejected", st["n_rejected"] > 0, {
             "file_word": np.where(st["n_rejected"] > 1, "files", "file"),

@@ -80,7 +80,9 @@ def comment_text(text) -> str:
     """Text safe inside a SPICE comment line: printable ASCII, one line."""
     s = "" if text is None else str(text)
     s = s.replace("\u2013", "-").replace("\u2014", "-").replace("\u00b5", "u") \
-         .replace("\u00d7", "x").replace("\u2212", "-").replace("\u00b0", "deg ")
+         .replace("\u00d7", "x").replace("\u2212", "-").replace("\u00b0", "deg ") \
+         .replace("\u00b7", "*").replace("\u03a9", "ohm").replace("\u00b1", "+/-") \
+         .replace("\u2264", "<=").replace("\u2265", ">=").replace("\u221a", "sqrt")
     return "".join(c if " " <= c <= "~" else "?" for c in s)
 
 
@@ -167,6 +169,12 @@ def device_model(device: str, rows: dict[str, dict | None], reel: dict) -> Devic
         return DeviceModel({}, [], why)
     params.update(fit)
     fixed = _undetermined(fwd)
+    if _usable(cap) and has_code([str(cap.get("reason_code", "") or "")],
+                                 "vj_m_not_determined")[0]:
+        fixed.append(comment_text(
+            f"VJ and M not determined by the biases measured ({_finite(cap, 'vr_min_V'):g} to "
+            f"{_finite(cap, 'vr_max_V'):g} V, see capacitance.csv): the card's C(V) holds "
+            "only over that range"))
     tnom = _finite(fwd, "reference_temperature_C")
     if _usable(cap) and all(_finite(cap, c) is not None for c in ("cj0_F", "vj_V", "m")):
         params.update(CJO=_finite(cap, "cj0_F"), VJ=_finite(cap, "vj_V"), M=_finite(cap, "m"))
