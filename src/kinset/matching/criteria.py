@@ -211,6 +211,9 @@ def _guard(profile: Profile, dim: Dimension, col: pd.Series, u: pd.Series, typic
                                       u=_u_text(rel[dev], dim), why=why))
     pool = offered & has & ~unknown & ~own
     cap = guard_cap(rel[pool].to_numpy(dtype=float), dim.tolerance)
+    if not pool.any() and (has & ~unknown).any():
+        # nobody left to match on it: report the guard the least uncertain part would need
+        cap = float(rel[has & ~unknown].min())
     for dev in col.index[pool & (rel > cap)]:
         reasons[dev].append(Reason.of("less_certain", dim.name, criterion=dim.describe(),
                                       u=_u_text(rel[dev], dim), cap=_u_text(cap, dim)))
