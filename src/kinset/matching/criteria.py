@@ -33,9 +33,9 @@ from kinset.quantities import evaluate as evaluate_quantity
 SQRT3 = math.sqrt(3.0)
 
 
-# A part whose own guard, 2·√2·u (the guard of a pair of two such parts), takes more than
-# this fraction of a tolerance is left out as `uncertain`: its value cannot tell a match
-# from a miss.
+# A part whose uncertainty alone takes more than this fraction of a tolerance as a guard
+# band (2·u, the guard beside an exactly known partner) is left out as `uncertain`: its
+# value cannot tell a match from a miss.
 UNCERTAIN_SHARE = 0.5
 
 
@@ -194,15 +194,15 @@ def _guard(profile: Profile, dim: Dimension, col: pd.Series, u: pd.Series, typic
     """Leave out the parts too uncertain to be matched on ``dim``; its guard band (SI).
     With ``guard_band: none`` the values are compared as they are: nothing is left out.
 
-    ``uncertain``: the part's own guard takes more than :data:`UNCERTAIN_SHARE` of the
-    tolerance, or its uncertainty is unknown. ``less_certain``: above the cap the guard is
+    ``uncertain``: the part's own guard (beside an exactly known partner) takes more than
+    :data:`UNCERTAIN_SHARE` of the tolerance, or its uncertainty is unknown. ``less_certain``: above the cap the guard is
     set at (:func:`guard_cap`, over the parts still ``offered``)."""
     if profile.guard_band != "accuracy":     # values compared as they are: no guard
         return 0.0
     rel = u / col.abs() if dim.relative else u
     has = col.notna()
     unknown = has & rel.isna()
-    own = has & (pair_guard(rel, rel) > UNCERTAIN_SHARE * dim.tolerance)
+    own = has & (pair_guard(rel, 0.0) > UNCERTAIN_SHARE * dim.tolerance)
     for dev in col.index[unknown | own]:
         why = (REASONS.text("uncertainty_unknown") if unknown[dev] else
                REASONS.text("uncertainty_share", share=f"{UNCERTAIN_SHARE:.0%}",
