@@ -22,7 +22,7 @@ import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
-from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
+from matplotlib.ticker import FuncFormatter, LogLocator, MaxNLocator, NullLocator
 
 from kinset.format import si
 from kinset.si import ZERO_CELSIUS, display_prefix
@@ -164,6 +164,7 @@ def funnel_figure(stages: list[tuple[str, int]], key: str) -> str:
         ax.text(n + top * 0.01, y, f"{int(n)}", va="center", ha="left", color=INK)
     ax.set_yticks(np.arange(len(counts)), labels)
     ax.set_xlim(0, top * 1.12)
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))   # parts are counted whole
     ax.set_xlabel("parts")
     ax.grid(axis="y", visible=False)
     return svg_text(fig, key, "yield: parts seen, with data, passing screening, placed in sets",
@@ -190,7 +191,8 @@ def distributions_figure(panels: list[Panel], key: str, columns: int = 3) -> str
     rows = math.ceil(len(panels) / columns)
     fig = _figure(7.2, 0.3 + 2.0 * rows)
     axes = fig.subplots(rows, columns, squeeze=False)
-    _margins(fig, rows, left=0.5, top=0.5, wspace=0.55, hspace=0.7)
+    # room between panels for each one's "parts" label beside its neighbour's ticks
+    _margins(fig, rows, left=0.5, top=0.5, wspace=0.8, hspace=0.7)
     for ax in axes.flat[len(panels):]:
         ax.set_visible(False)
     for ax, p in zip(axes.flat, panels):
@@ -226,6 +228,7 @@ def distributions_figure(panels: list[Panel], key: str, columns: int = 3) -> str
         ax.set_title(f"{p.title} ({len(x)} parts)", loc="left")
         ax.set_xlabel(unit or "[1]")
         ax.set_ylabel("parts")
+        ax.yaxis.set_major_locator(MaxNLocator(integer=True))
     handles = [Patch(color=ALL_PARTS, label="all parts"), Patch(color=PLACED, label="placed in sets"),
                Line2D([], [], color=LIMIT, linestyle="--", label="screening limit"),
                Line2D([], [], color=DAMAGED, marker="x", linestyle="none",
@@ -301,6 +304,9 @@ def _forward_panel(ax, members, style, currents):
                     markerfacecolor="none", label=f"{_label(m.device)} (points only)")
     for c in currents:
         ax.axhline(c, color=LIMIT, linewidth=0.6, linestyle=":")
+    if currents:
+        ax.plot([], [], color=LIMIT, linewidth=0.6, linestyle=":",
+                label="profile's match currents")
     ax.set_yscale("log")
     _log_axis(ax.yaxis, "A")
     ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v * 1e3:.0f}"))
@@ -329,8 +335,8 @@ def _deviation_panel(ax, fitted, style, currents, temperature):
                 transform=ax.transAxes)
     ax.set_xlabel("current")
     ax.set_ylabel("V \u2212 set mean [mV]")
-    ax.set_title(f"forward voltage minus the set's mean, at {temperature - ZERO_CELSIUS:g} \u00b0C",
-                 loc="left")
+    ax.set_title(f"V minus the set's mean, at {temperature - ZERO_CELSIUS:g} \u00b0C "
+                 "(dotted: match currents)", loc="left")
 
 
 def _cv_panel(ax, members, style):
@@ -407,7 +413,7 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
     rows = math.ceil(n_panels / cols)
     fig = _figure(7.2 if cols == 2 else 3.8, 2.4 * rows)
     axes = list(fig.subplots(rows, cols, squeeze=False).flat)
-    _margins(fig, rows)
+    _margins(fig, rows, wspace=0.85)    # the right panels' y labels clear the left ticks
     for ax in axes[n_panels:]:
         ax.set_visible(False)
     style = {m.device: (MEMBER_COLORS[i % len(MEMBER_COLORS)],
