@@ -12,7 +12,6 @@ from __future__ import annotations
 import html
 import json
 import math
-import re
 
 import numpy as np
 import pandas as pd
@@ -52,6 +51,7 @@ h2 { font-size: 1.2em; margin: 30px 0 8px; padding-bottom: 3px; border-bottom: 1
 h3 { font-size: 1.02em; margin: 20px 0 6px; }
 p, ul { margin: 6px 0; }
 .muted { color: var(--muted); }
+.nowrap { white-space: nowrap; }
 .lead { font-size: 1.05em; }
 .facts { display: flex; flex-wrap: wrap; gap: 8px; margin: 10px 0; padding: 0; list-style: none; }
 .facts li { border: 1px solid var(--rule); background: var(--band); padding: 6px 12px; min-width: 120px; }
@@ -120,27 +120,6 @@ def _table(headers: list[str], rows, numeric: set[int] = frozenset(), ident: str
                                       else f"<td>{c}</td>" for i, c in enumerate(r)) + "</tr>"
                      for r in rows)
     return f"<div class=\"wide\"><table{attrs}><thead><tr>{head}</tr></thead>\n<tbody>\n{body}\n</tbody></table></div>"
-
-
-# --------------------------------------------------------------------------- reasons
-
-_SCREEN = re.compile(r"^screen: (?P<q>.+?) (?P<v>\S+ \S+) is (?P<dir>above|below) the limit (?P<lim>.+)$")
-_NUMBER = re.compile(r"[-+]?\d+(?:\.\d+)?(?:e[-+]?\d+)?(?:\s?[a-zA-Z\u00b5\u00d7%\u00b0]+)?")
-
-
-def reason_kind(reason: str) -> str:
-    """A reason with its part-specific values left out, for counting parts per reason.
-
-    The first reason of a part decides its stage and is the one counted; the values
-    of the part itself (its leakage, its measured range) are masked, the profile's
-    conditions and limits are kept.
-    """
-    first = str(reason).split("; ")[0].strip()
-    m = _SCREEN.match(first)
-    if m:
-        return f"screen: {m['q']} is {m['dir']} the limit {m['lim']}"
-    head, sep, tail = first.partition(": ")
-    return head + sep + _NUMBER.sub("\u2026", tail) if sep else _NUMBER.sub("\u2026", first)
 
 
 # --------------------------------------------------------------------------- sections
@@ -263,7 +242,7 @@ def _yield_section(inp: ReportInputs) -> str:
     seen = int(s.get("parts_seen", len(inp.devices)))
     stages = [("parts seen", seen),
               ("with the data the profile needs", int(s.get("parts_with_data", seen - left.get("data", 0)))),
-              ("passed screening", int(s.get("parts_passed_screen", 0))),
+              ("passed screens and guard bands", int(s.get("parts_passed_screen", 0))),
               ("placed in sets", int(s.get("parts_used", len(inp.sets))))]
     fig = plots.funnel_figure(stages, "fig-yield")
     un = inp.unmatched
@@ -272,8 +251,8 @@ def _yield_section(inp: ReportInputs) -> str:
     if len(counts):
         counts["o"] = counts["stage"].map(lambda x: order.get(x, len(order)))
         counts = counts.sort_values(["o", "n", "kind"], ascending=[True, False, True], kind="stable")
-    rows = [[e(STAGES.get(r.stage, r.stage or "\u2013")), e(r.kind), e(r.n)]
-            for r in counts.itertuples()]
+    rows = [[f'<span class="nowrap" title="{e(STAGES.get(r.stage, ""))}">'
+             f'{e(_stage_word(r.stage))}</span>', e(r.kind), e(r.n)] for r in counts.itertuples()]
     check = ""
     total = int(s.get("parts_used", len(inp.sets))) + len(un)
     if total != seen:
@@ -284,26 +263,33 @@ def _yield_section(inp: ReportInputs) -> str:
             f"<figure>{fig}<figcaption>From every part seen in any dataset to the parts placed in "
             f"sets. Left out: {e(left_text)}.</figcaption></figure>{check}"
             "<h3>Why parts were left out</h3><p class=\"muted\">Each part counted once, under its "
-            "first reason; its own values are masked (\u2026). Every part's full reason is under "
-            "Unmatched parts.</p>"
+            "first reason, shown for one of them; every part's full reason is under Unmatched "
+            "parts. Stages: " + e("; ".join(f"{k.replace('_', ' ')}: {v}" for k, v in STAGES.items()))
+            + ".</p>"
             + _table(["stage", "reason", "parts"], rows, {2}, "reasons") + "</section>")
+
+
+def _stage_word(stage: str) -> str:
+    return stage.replace("_", " ") if stage else "\u2013"
 
 
 def _reason_groups(un: pd.DataFrame) -> pd.DataFrame:
     """Parts not placed, counted per (stage, code, criterion) of their first reason.
 
-    The groups come from codes alone; each is shown with the first member's reason,
-    its part-specific values masked (:func:`reason_kind`).
+    The groups come from codes alone; each is shown with its first member's first reason,
+    named ("e.g. D005: ..."), so no value in it is cut or masked.
     """
     cols = ["stage", "code", "criterion", "kind", "n"]
     if not len(un):
         return pd.DataFrame(columns=cols)
     text = lambda c: un[c].astype(object).fillna("").astype(str).to_numpy()   # noqa: E731
     keys = pd.DataFrame({"stage": text("stage"), "code": text("reason_code"),
-                         "criterion": text("criterion"), "reason": un["reason"].to_numpy()})
+                         "criterion": text("criterion"), "reason": un["reason"].to_numpy(),
+                         "device": text("device")})
     grouped = keys.groupby(["stage", "code", "criterion"], sort=False)
     counts = grouped.size().reset_index(name="n")
-    counts["kind"] = [reason_kind(r) for r in grouped["reason"].first().to_numpy()]
+    first = grouped[["device", "reason"]].first().to_numpy()
+    counts["kind"] = [f"e.g. {d}: {str(r).split('; ')[0].strip()}" for d, r in first]
     return counts[cols]
 
 
