@@ -31,6 +31,7 @@ from kinset.report.picklist import position_text
 # Sets drawn with figures; the rest are tabulated (keeps a big reel's page small: each
 # drawn set is about 55 kB of SVG; 30 keep a 10,000-part reel's page under 5 MB).
 MAX_DRAWN_SETS = 30
+LONG_TABLE = 40      # rows above which a table scrolls in its own box (whole in print)
 
 STAGES = {
     "data": "lacks the data the profile needs",
@@ -93,10 +94,13 @@ svg.plot.narrow { max-width: 640px; }
 svg.plot * { stroke-linejoin: round; stroke-linecap: butt; }
 svg.plot text { font-family: sans-serif; }
 .wide { overflow-x: auto; }
+.long { max-height: 30em; overflow-y: auto; border-bottom: 1px solid var(--rule); }
+.long thead th { position: sticky; top: 0; background: #fff; }
 @page { margin: 14mm; }
 @media print {
   body { max-width: none; padding: 0; font-size: 10.5pt; }
   nav { display: none; }
+  .long { max-height: none; overflow: visible; border: 0; }
   a { color: inherit; text-decoration: none; }
   h2 { break-after: avoid; }
   .set, figure, tr { break-inside: avoid; }
@@ -125,7 +129,9 @@ def _num(v, unit: str = "", digits: int = 4) -> str:
 
 def _table(headers: list[str], rows, numeric: set[int] = frozenset(), ident: str = "",
            cls: str = "") -> str:
-    """A table; ``rows`` are lists of already escaped cell HTML."""
+    """A table; ``rows`` are lists of already escaped cell HTML. A table of more than
+    :data:`LONG_TABLE` rows scrolls in its own box on screen and prints whole."""
+    rows = list(rows)
     # numeric columns are right-aligned by the table's classes n1..n12 (one rule per column
     # in the page's style), not a class on every cell: a 10,000-part pick list stays small
     classes = " ".join([cls] * bool(cls) + [f"n{i + 1}" for i in sorted(numeric) if i < 12])
@@ -135,7 +141,8 @@ def _table(headers: list[str], rows, numeric: set[int] = frozenset(), ident: str
     body = "\n".join("<tr>" + "".join(f'<td class="num">{c}</td>' if i in numeric and i >= 12
                                       else f"<td>{c}</td>" for i, c in enumerate(r)) + "</tr>"
                      for r in rows)
-    return f"<div class=\"wide\"><table{attrs}><thead><tr>{head}</tr></thead>\n<tbody>\n{body}\n</tbody></table></div>"
+    box = "wide long" if len(rows) > LONG_TABLE else "wide"
+    return f"<div class=\"{box}\"><table{attrs}><thead><tr>{head}</tr></thead>\n<tbody>\n{body}\n</tbody></table></div>"
 
 
 # --------------------------------------------------------------------------- sections
@@ -160,7 +167,7 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
     desc = p.description
     kept = [("kept", "Kept sets")] if s.get("kept_sets") else []
     nav = "".join(f'<a href="#{a}">{e(t)}</a>' for a, t in (
-        *kept, ("pick-list", "Pick list"), ("yield", "Yield"), ("distributions", "Distributions"),
+        ("yield", "Yield"), *kept, ("pick-list", "Pick list"), ("distributions", "Distributions"),
         ("sets", "Sets"), ("unmatched", "Unmatched parts"), ("models", "SPICE models"),
         ("provenance", "Provenance"), ("cautions", "Cautions")))
     return (f"<header><h1>{e(title)}: matched sets from reel {e(inp.reel_id)}</h1>"
@@ -645,9 +652,9 @@ def render_page(inp: ReportInputs, names: dict[str, str], picks: pd.DataFrame, l
     title = f"{p.title} \u2013 reel {inp.reel_id} \u2013 kinset report"
     body = "\n".join([
         _header(inp, picks),
+        _yield_section(inp),          # the verdict first: how many, and why the rest not
         _kept_section(inp),
         _pick_section(picks, cells),
-        _yield_section(inp),
         _distributions_section(inp),
         _sets_section(inp, cells),
         _unmatched_section(inp),
