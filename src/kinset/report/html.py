@@ -177,9 +177,11 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
             + f'<p class="lead">{e(n_sets)} set(s) of {e(k)} parts'
             + (f", {e(s.get('kept_sets'))} of them kept from earlier (listed apart)"
                if s.get("kept_sets") else "")
-            + f". Pull the {len(picks)} parts of the pick list in tape order and put each "
-              "into the bin of its set; why every other part was left out is listed under "
-              "Unmatched parts.</p>"
+            + (f". Pull the {len(picks)} parts of the pick list in tape order and put each "
+               "into the bin of its set; why every other part was left out is listed under "
+               "Unmatched parts.</p>" if len(picks) else
+               ". Nothing to pull: why each part was left out is under Yield, first reason "
+               "first, and every part's reasons under Unmatched parts.</p>")
             + _gaps_box(inp)
             + f'<ul class="facts">{lis}</ul><nav>{nav}</nav></header>')
 
