@@ -312,3 +312,24 @@ def test_pick_list_puts_parts_without_position_last_by_set():
     got = pick_list(sets)
     assert got["device"].tolist() == ["c", "a", "e", "b", "d"]
     assert got["position"].tolist() == ["2", "5", "11", "", ""]
+
+
+def test_reason_groups_quote_a_named_part_whole_and_count_every_part(reel):
+    """Each row of 'Why parts were left out' names one of its parts and quotes that part's
+    own first reason from unmatched.csv in full (nothing masked or cut), and the rows'
+    counts add up to the parts not placed."""
+    import html as html_lib
+    import re
+    _results, apps = reel
+    _app, folder = apps["audio_clipper_pair"]
+    page = (folder / "report.html").read_text(encoding="utf-8")
+    un = pd.read_csv(folder / "unmatched.csv", dtype=str, keep_default_na=False)
+    first = {d: r.split("; ")[0].strip() for d, r in zip(un["device"], un["reason"])}
+    table = page.split('id="reasons"', 1)[1].split("</table>", 1)[0]
+    rows = re.findall(r"<tr><td>.*?</td><td>(.*?)</td><td>(\d+)</td></tr>", table)
+    assert rows
+    for cell, _n in rows:
+        text = html_lib.unescape(re.sub(r"<[^>]+>", "", cell))
+        device, reason = text[len("e.g. "):].split(": ", 1)
+        assert first[device] == reason
+    assert sum(int(n) for _c, n in rows) == len(un)
