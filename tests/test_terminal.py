@@ -5,6 +5,7 @@ Snakemake runs in a subprocess, as a user types it (the workflow profile in
 profiles/default is read by itself, as for a user in the clone).
 """
 
+import json
 import os
 import subprocess
 import sys
@@ -149,3 +150,27 @@ def test_a_run_ends_with_each_applications_result_and_report_shows_progress(tmp_
     assert rep.stdout == ""                                   # progress goes to stderr only
     for name, data in before.items():                        # and changes no output file
         assert (folder / "pair" / name).read_bytes() == data
+
+
+def test_an_earlier_runs_summary_is_marked_out_of_date(tmp_path):
+    """A run that built other targets must not pass an old summary off as current: the
+    files' modification times (os.stat) decide."""
+    from kinset.workflow import make_plan
+    reel = make_reel(tmp_path / "reel")
+    plan = make_plan(check_config({"reel": str(reel), "results": str(tmp_path / "results")}))
+    assert plan.summary() == []                                   # nothing matched yet
+    (plan.out / "pair").mkdir(parents=True)
+    summary = {"application": "pair", "parts_left": {"no_set": 1}, "sets": 1, "new_sets": 1,
+               "set_size": 2, "upper_bound": 1, "method": "test", "parts_used": 2,
+               "parts_seen": 3}
+    (plan.out / "pair" / "summary.json").write_text(json.dumps(summary))
+    (plan.out / "devices.csv").write_text("device\n")
+    old, new = 1_000_000_000, 1_000_000_100
+    os.utime(plan.out / "pair" / "summary.json", (new, new))
+    for path in (plan.out / "devices.csv", reel / "pair.yaml"):
+        os.utime(path, (old, old))
+    lines = plan.summary()
+    assert lines[0].startswith(f"kinset: {plan.out}/")
+    assert lines[1].startswith("  pair: 1 new sets of 2") and "out of date" not in lines[1]
+    os.utime(plan.out / "devices.csv", (new + 1, new + 1))
+    assert plan.summary()[1].endswith("(out of date: from an earlier run)")

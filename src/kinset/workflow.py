@@ -154,13 +154,20 @@ class Plan:
     def summary(self) -> list[str]:
         """What a finished run made: the results folder, then each application's one-line
         summary (:func:`kinset.matching.run.summary_line` of its ``summary.json``), for the
-        end of the terminal output. Applications not (yet) matched are left out."""
+        end of the terminal output. Applications not (yet) matched are left out; one whose
+        summary is older than the reel's devices.csv or its profile (a run that asked for
+        other targets) is marked out of date."""
         from kinset.matching.run import summary_line
         lines = []
-        for name in self.applications:
+        for name, profile in self.applications.items():
             path = self.out / name / "summary.json"
-            if path.is_file():
-                lines.append(f"  {summary_line(json.loads(path.read_text(encoding='utf-8')))}")
+            if not path.is_file():
+                continue
+            line = f"  {summary_line(json.loads(path.read_text(encoding='utf-8')))}"
+            upstream = [p for p in (self.out / "devices.csv", Path(profile)) if p.is_file()]
+            if any(p.stat().st_mtime > path.stat().st_mtime for p in upstream):
+                line += " (out of date: from an earlier run)"
+            lines.append(line)
         if not lines:
             return []
         return [f"kinset: {self.out}/ (each application's report.html is in its folder):"] + lines
