@@ -3,19 +3,25 @@
 #   snakemake --cores 2 --config reel=PATH           # another reel
 import sys
 
-from snakemake.utils import min_version, validate
+from snakemake.utils import min_version
 
-from kinset.io.config import schema_path
+from kinset.errors import InputError
 from kinset.registry import NAMES
-from kinset.workflow import BUCKET_PATTERN, make_plan
+from kinset.workflow import BUCKET_PATTERN, check_config, make_plan, stopped
 
 min_version("8.0")
 
-validate(config, str(schema_path("workflow")), set_default=True)
-PLAN = make_plan(config)
+# A typo in --config, reel.yaml or an application profile: one line naming the file, line
+# and key, before any job runs (not the schema, not a traceback).
+try:
+    config.update(check_config(config))
+    PLAN = make_plan(config)
+    _NOTICES = PLAN.notices()
+except InputError as _error:
+    sys.exit(f"kinset: error: {_error}")
 OUT = str(PLAN.out)
 # What the reel lacks for an application, and how to proceed: said at once.
-for _notice in PLAN.notices():
+for _notice in _NOTICES:
     print(_notice, file=sys.stderr)
 
 wildcard_constraints:
@@ -39,3 +45,12 @@ rule all:
     default_target: True
     input:
         PLAN.targets(),
+
+
+# The run's last words: what each application made, or why the run stopped (a failed job's
+# log is also printed where it failed: show-failed-logs in profiles/default).
+onsuccess:
+    print("\n".join(PLAN.summary()), file=sys.stderr)
+
+onerror:
+    print(stopped(log), file=sys.stderr)

@@ -31,6 +31,9 @@ def _cmd_extract(args) -> None:
     from kinset.io.output import write_csv
     from kinset.io.reel import load_reel
     reel = load_reel(args.reel)
+    n = len(args.files)
+    _progress(f"{args.dataset}: reading and fitting " + (
+        f"{n} file{'' if n == 1 else 's'}" if n else f"the files in {reel.folder / args.dataset}"))
     result = dataset(args.dataset).extract(reel, args.files)
     out = Path(args.output)
     write_csv(result.table, out)
@@ -73,6 +76,11 @@ def _print_warnings(profile) -> None:
         print(f"{profile.path}: warning: {warning}", file=sys.stderr)
 
 
+def _progress(text: str) -> None:
+    """A long command's progress line, on stderr at once (stdout stays the command's output)."""
+    print(text, file=sys.stderr, flush=True)
+
+
 def _cmd_match(args) -> None:
     from kinset.matching.run import run_match, summary_line
     names = [a.strip() for a in args.application.split(",") if a.strip()]
@@ -81,7 +89,7 @@ def _cmd_match(args) -> None:
     for name in names:      # in the order given: each after the ones before it
         out = Path(args.output) if len(names) == 1 else Path(args.output) / Path(name).stem
         result = run_match(args.results, name, out, args.ledger, after, args.sets_wanted,
-                           waive, lambda text: print(text, file=sys.stderr, flush=True))
+                           waive, _progress)
         after.append(out)
         _print_warnings(result.profile)
         print(summary_line(result.summary), file=sys.stderr)
@@ -146,7 +154,8 @@ def _cmd_partners(args) -> None:
 
 def _cmd_report(args) -> None:
     from kinset.report import write_report
-    r = write_report(args.results, args.application, args.output, args.match)
+    r = write_report(args.results, args.application, args.output, args.match,
+                     progress=_progress)
     print(f"report: {r.sets} sets, {r.placed} parts placed, {r.unmatched} not placed; "
           f"{r.folder / 'report.html'} ({r.page_bytes} bytes)", file=sys.stderr)
 

@@ -59,6 +59,9 @@ class Plan:
     vna_unlisted: list[str] = field(default_factory=list)
     # screened quantities waived for every application (--config waive_screens=...)
     waive_screens: tuple[str, ...] = ()
+    # output name -> its validated profile (kinset.matching.profile.Profile), waivers applied:
+    # read when the plan is made, so a profile's typo stops the run before any job
+    profiles: dict = field(default_factory=dict)
 
     @property
     def out(self) -> Path:
@@ -141,16 +144,33 @@ class Plan:
         workflow starts; :mod:`kinset.matching.coverage`). A waiver of a match criterion
         is an error here, before any job runs."""
         from kinset.matching.coverage import gaps, notice
-        from kinset.matching.profile import load_profile
         out = []
-        for name, path in self.applications.items():
-            profile = load_profile(path)
-            if self.waive_screens:
-                profile = profile.waiving(self.waive_screens, "config waive_screens")
+        for name, profile in self.profiles.items():
             said = notice(name, [g.as_dict() for g in gaps(profile, set(self.datasets))])
             if said is not None:
                 out.append(said.text())
         return out
+
+    def summary(self) -> list[str]:
+        """What a finished run made: the results folder, then each application's one-line
+        summary (:func:`kinset.matching.run.summary_line` of its ``summary.json``), for the
+        end of the terminal output. Applications not (yet) matched are left out; one whose
+        summary is older than the reel's devices.csv or its profile (a run that asked for
+        other targets) is marked out of date."""
+        from kinset.matching.run import summary_line
+        lines = []
+        for name, profile in self.applications.items():
+            path = self.out / name / "summary.json"
+            if not path.is_file():
+                continue
+            line = f"  {summary_line(json.loads(path.read_text(encoding='utf-8')))}"
+            upstream = [p for p in (self.out / "devices.csv", Path(profile)) if p.is_file()]
+            if any(p.stat().st_mtime > path.stat().st_mtime for p in upstream):
+                line += " (out of date: from an earlier run)"
+            lines.append(line)
+        if not lines:
+            return []
+        return [f"kinset: {self.out}/ (each application's report.html is in its folder):"] + lines
 
     @property
     def ledger(self) -> str:
@@ -190,10 +210,60 @@ def make_plan(config: dict) -> Plan:
             raise InputError(f"application '{name}' is listed twice", path)
         plan.applications[name] = str(path)
         plan.sets_wanted[name] = item.sets_wanted
+        plan.profiles[name] = _checked_profile(path, plan.waive_screens)
     if not plan.datasets:
         raise InputError("the reel folder holds no dataset files "
                          f"(expected CSV files in {', '.join(NAMES)}/)", reel.folder)
     return plan
+
+
+def _checked_profile(path: Path, waive: tuple[str, ...]):
+    """The validated profile at ``path`` (an InputError names its file, line and key)."""
+    from kinset.matching.profile import load_profile
+    profile = load_profile(str(path))
+    return profile.waiving(waive, "config waive_screens") if waive else profile
+
+
+def check_config(config: dict) -> dict:
+    """The workflow config (``--config``) validated, with its defaults filled in.
+
+    A problem is one short InputError naming the key (and the nearest allowed key for
+    a typo), instead of the whole schema.
+    """
+    from kinset.io.config import validate
+    try:
+        return validate(dict(config), "workflow", "--config")
+    except InputError as error:
+        key = error.column
+        message = error.message if error.message.startswith("unknown key") or not key \
+            else f"{key}: {error.message}"
+        raise InputError(message, "--config") from None
+
+
+def errors_in(logs) -> list[str]:
+    """The ``kinset: error:`` lines of Snakemake's log file(s) (a path or a list of
+    paths, as ``onerror`` is given them), each once, in order.
+
+    With ``show-failed-logs`` (profiles/default) Snakemake copies a failed job's log into
+    its own; the Snakefile's ``onerror`` repeats these lines as the run's last words.
+    """
+    found = []
+    for log in [logs] if isinstance(logs, (str, Path)) else logs or []:
+        try:
+            text = Path(log).read_text(encoding="utf-8", errors="replace")
+        except OSError:
+            continue
+        found += [line.strip() for line in text.splitlines()
+                  if line.startswith("kinset: error:")]
+    return list(dict.fromkeys(found))
+
+
+def stopped(logs) -> str:
+    """The last words of a failed run: its kinset errors (:func:`errors_in`), or where to look."""
+    errors = errors_in(logs)
+    if not errors:
+        return "kinset: the run stopped: the failed job's log is printed above"
+    return "\n".join(["kinset: the run stopped:"] + [f"  {e}" for e in errors])
 
 
 # Touchstone files are small and many (one per device and bias). A job per device would

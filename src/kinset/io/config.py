@@ -10,6 +10,7 @@ import copy
 import json
 import math
 import re
+from difflib import get_close_matches
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
@@ -153,6 +154,12 @@ def _line_of(key_path: tuple, lines: dict | None) -> int | None:
     return text.get(probe)
 
 
+def _nearest(word: Any, names: list[str]) -> str:
+    """``did you mean 'x'? `` for the closest of ``names`` (difflib's ratio), or ''."""
+    close = get_close_matches(str(word), names, n=1)
+    return f"did you mean '{close[0]}'? " if close else ""
+
+
 def validate(data: Any, kind: str, path: str | Path, lines: dict | None = None) -> dict:
     """Validate ``data`` against the shipped schema ``kind`` and fill its defaults.
 
@@ -179,7 +186,11 @@ def validate(data: Any, kind: str, path: str | Path, lines: dict | None = None) 
             extra = sorted(set(err.instance) - set(allowed), key=str)
             bad = extra[0] if extra else "?"
             key_path = key_path + (bad,)
-            message = f"unknown key '{bad}' (allowed here: {', '.join(allowed)})"
+            message = f"unknown key '{bad}' ({_nearest(bad, allowed)}allowed here: " \
+                      f"{', '.join(allowed)})"
+        elif err.validator == "enum":
+            hint = _nearest(err.instance, [str(c) for c in err.validator_value])
+            message = f"{err.message} ({hint.strip()})" if hint else err.message
         elif err.validator == "required":
             message = f"missing required key: {err.message.split(' ')[0]}"
         elif err.validator == "oneOf":
