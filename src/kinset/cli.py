@@ -164,10 +164,28 @@ def _cmd_demo(args) -> None:
     from kinset.demo import write_demo
     try:
         out = write_demo(Path(args.out), devices=args.devices, seed=args.seed,
-                         layout=args.layout)
+                         layout=args.layout, kind=args.kind)
     except (FileExistsError, ValueError) as exc:
         raise InputError(f"{exc}", args.out) from None
     print(f"demo reel written to {out}", file=sys.stderr)
+
+
+def _demo_parser(sub) -> None:
+    """kinset demo: a synthetic reel folder of either kind."""
+    m = sub.add_parser("demo", help="write a synthetic reel folder")
+    m.add_argument("--out", required=True)
+    m.add_argument("--kind", choices=["switching", "rf"], default="switching",
+                   help="switching: silicon switching diodes (data_demo/); rf: small-signal "
+                   "RF Schottky diodes for mixer quads and detector pairs (data_demo_rf/)")
+    m.add_argument("--devices", type=int, default=None,
+                   help="default 240 (switching), 320 (rf)")
+    m.add_argument("--seed", type=int, default=None, help="default 412 (switching), 917 (rf)")
+    m.add_argument("--layout", choices=["workshop", "batches", "per-part"],
+                   help="workshop: a small reel of mixed instruments and formats; batches: "
+                   "every part on every station at production point counts, in batch files "
+                   "of 250 part numbers; per-part: the same, one file per part and station "
+                   "(default: workshop up to 240 devices, batches above)")
+    m.set_defaults(func=_cmd_demo)
 
 
 def _ledger_parsers(sub) -> None:
@@ -278,16 +296,7 @@ def build_parser() -> argparse.ArgumentParser:
                    "summary.json (default: the output folder)")
     o.set_defaults(func=_cmd_report)
 
-    m = sub.add_parser("demo", help="write a synthetic reel folder")
-    m.add_argument("--out", required=True)
-    m.add_argument("--devices", type=int, default=240)
-    m.add_argument("--seed", type=int, default=412)
-    m.add_argument("--layout", choices=["workshop", "batches", "per-part"],
-                   help="workshop: a small reel of mixed instruments and formats; batches: "
-                   "every part on every station at production point counts, in batch files "
-                   "of 250 part numbers; per-part: the same, one file per part and station "
-                   "(default: workshop up to 240 devices, batches above)")
-    m.set_defaults(func=_cmd_demo)
+    _demo_parser(sub)
     return p
 
 

@@ -46,6 +46,7 @@ package inductance    1.0 nH·exp(0.05 z_l)
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -58,7 +59,8 @@ from kinset.physics.capacitance import (junction_capacitance, reflection_coeffic
 from kinset.physics.constants import ZERO_CELSIUS, thermal_voltage
 from kinset.physics.forward import (current_from_voltage, saturation_current_at,
                                     voltage_from_current)
-from kinset.physics.leakage import generation_temperature_factor, reverse_current
+from kinset.physics.leakage import (generation_temperature_factor,
+                                    leakage_temperature_factor, reverse_current)
 from kinset.physics.recovery import recovery_waveform
 
 DEFAULT_DEVICES = 240
@@ -111,6 +113,44 @@ _BATCH_TITLES = {
 _OWNED = ("reel.yaml", "truth.csv", "forward/batch_*.csv", "leakage/leak_*.csv",
           "capacitance/cv_*.csv", "capacitance/index.csv", "capacitance/vna_*.s1p",
           "capacitance/open_*.s1p", "recovery/rr_*.csv", "forward/fwd_*.csv")
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """What one demo reel's bench looks like: the junction's IS(T) law, the forward
+    batches and sweep, the leakage sweep, the C–V and VNA set-up, the recovery bench.
+
+    :data:`SILICON` is the workshop reel of ``data_demo/``; :mod:`kinset.demo_rf` holds
+    the RF Schottky reel's. The writers below take one, so both reels come from the same
+    code.
+    """
+
+    material: str = "silicon"
+    thermal_resistance: float = THERMAL_RESISTANCE                    # [K/W]
+    forward_currents: tuple = tuple(FORWARD_CURRENTS)                 # [A]
+    forward_batches: tuple = FORWARD_BATCHES
+    forward_noise_v: float = FORWARD_NOISE_V                          # [V] rms
+    sweep_text: str = "10 uA..20 mA"
+    leakage_voltages: tuple = tuple(LEAKAGE_VOLTAGES)                 # [V]
+    leakage_chunk: int = 60                                           # devices per file
+    cv_voltages: tuple = tuple(CV_VOLTAGES)                           # [V]; () for none
+    vna_voltages: tuple = VNA_VOLTAGES                                # [V]
+    vna_frequencies: tuple = tuple(VNA_FREQUENCIES)                   # [Hz]
+    vna_noise: float = VNA_NOISE                                      # rms per part of S11
+    fixture_capacitance: float = FIXTURE_CAPACITANCE                  # [F]
+
+    @property
+    def eg(self) -> float:
+        """EG [eV] of the IS(T) law, as the fitter takes it from reel.yaml's material."""
+        return MATERIAL_DEFAULTS[self.material]["eg_eV"]
+
+    @property
+    def xti(self) -> float:
+        return MATERIAL_DEFAULTS[self.material]["xti"]
+
+
+SILICON = Scenario()
+
 # Layouts: the workshop reel (mixed instruments and formats, small batches), or a
 # production reel of every part on every station (kinset.demo_production), in batch
 # files or one file per part.
@@ -244,34 +284,36 @@ def demo_parameters(devices: int = DEFAULT_DEVICES, seed: int = DEFAULT_SEED) ->
 
 # --------------------------------------------------------------------------- forward
 
-def _self_heated(solve, ambient):
+def _self_heated(solve, ambient, rth: float = THERMAL_RESISTANCE):
     """Fixed point of T = Ta + I·V·Rth for a solver (T -> (I, V)); returns I, V, T."""
     t = ambient
     for _ in range(8):      # contraction factor ~ |dV/dT|·I·Rth < 0.02: 8 steps suffice
         i, v = solve(t)
-        t = ambient + i * v * THERMAL_RESISTANCE
+        t = ambient + i * v * rth
     i, v = solve(t)
     return i, v, t
 
 
-def sweep_voltages(p: pd.DataFrame, current, ambient):
+def sweep_voltages(p: pd.DataFrame, current, ambient, sc: Scenario = SILICON):
     """Terminal voltage at forced currents, with self-heating; arrays (devices, points)."""
     is0, n, rs = (p[c].to_numpy()[:, None] for c in ("is_A", "n", "rs_ohm"))
 
     def solve(t):
-        i_s = saturation_current_at(is0, t, T_REF, n, EG, XTI)
+        i_s = saturation_current_at(is0, t, T_REF, n, sc.eg, sc.xti)
         return current, voltage_from_current(current, i_s, n, rs, t)
 
-    return _self_heated(solve, ambient)[1]
+    return _self_heated(solve, ambient, sc.thermal_resistance)[1]
 
 
-def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
+def forward_files(p: pd.DataFrame, seed: int, reel: str,
+                  sc: Scenario = SILICON) -> dict[str, str]:
+    """The forward batch files of the parts in ``p`` (name -> text)."""
     rng = np.random.default_rng([seed, 2])
     out = {}
-    cur_text = sci_text(FORWARD_CURRENTS, 4)
+    cur_text = sci_text(np.array(sc.forward_currents), 4)
     cur = as_read(cur_text)
     k = len(cur)
-    for name, _ in FORWARD_BATCHES:
+    for name, _ in sc.forward_batches:
         sel = p[p["forward_batch"] == name]
         nd = len(sel)
         if nd == 0:
@@ -287,13 +329,13 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
             base, spread = (35.0, 0.2) if warm else (25.0, 0.15)
             amb_text = fixed_text(base + spread * rng.standard_normal(nd), 1)
             amb = as_read(amb_text)[:, None] + ZERO_CELSIUS
-            volt = sweep_voltages(sel, cur[None, :], amb)
-            volt = volt + FORWARD_NOISE_V * rng.standard_normal(volt.shape)
+            volt = sweep_voltages(sel, cur[None, :], amb, sc)
+            volt = volt + sc.forward_noise_v * rng.standard_normal(volt.shape)
             rows_dev = np.repeat(dev, k)
             rows_pos = np.repeat(pos, k)
             rows_t = np.repeat(amb_text, k)
             head += [f"source-measure unit, {k} log-spaced forced currents "
-                     f"10 uA..20 mA, DC (the part self-heats in the fixture)",
+                     f"{sc.sweep_text}, DC (the part self-heats in the fixture)",
                      "temperature_C is the fixture temperature read before each device"]
             if warm:
                 head.append("this batch was measured in the warm afternoon: "
@@ -309,8 +351,8 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
         elif name == "batch_d_diode_check":
             i_text = fixed_text(np.full(nd, DIODE_CHECK_CURRENT * 1e3), 2)
             i = as_read(i_text) * 1e-3
-            volt = sweep_voltages(sel, i[:, None], T_REF)[:, 0]
-            volt = volt + FORWARD_NOISE_V * rng.standard_normal(nd)
+            volt = sweep_voltages(sel, i[:, None], T_REF, sc)[:, 0]
+            volt = volt + sc.forward_noise_v * rng.standard_normal(nd)
             head += ["bench meter, diode-check function: one reading per device at its "
                      "0.63 mA test current",
                      "room at 25 C; no temperature column (kinset takes the reel's ambient)"]
@@ -329,12 +371,12 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
             is0, n, rs = (sel[c].to_numpy()[:, None] for c in ("is_A", "n", "rs_ohm"))
 
             def solve(t):
-                i_s = saturation_current_at(is0, t, T_REF, n, EG, XTI)
+                i_s = saturation_current_at(is0, t, T_REF, n, sc.eg, sc.xti)
                 i = current_from_voltage(sup, i_s, n, rs + r, t)
                 return i, sup - i * r
 
-            _, volt, _ = _self_heated(solve, T_REF)
-            volt = volt + FORWARD_NOISE_V * rng.standard_normal(volt.shape)
+            _, volt, _ = _self_heated(solve, T_REF, sc.thermal_resistance)
+            volt = volt + sc.forward_noise_v * rng.standard_normal(volt.shape)
             head += ["bench supply (5 V and 10 V) through a series resistor (1 k, 10 k, "
                      "100 k; measured values); the meter reads the diode voltage",
                      "the current is (supply_V - voltage_V) / resistance_ohm; room at 25 C"]
@@ -347,14 +389,24 @@ def _forward_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
 
 # --------------------------------------------------------------------------- leakage
 
-def leakage_readings(p: pd.DataFrame, voltages: np.ndarray, rng):
+def leakage_readings(p: pd.DataFrame, voltages: np.ndarray, rng, sc: Scenario = SILICON):
     """Fixture temperatures (text), model arguments per device, true and measured currents
-    at ``voltages`` (devices, points), and the noise of each compliance reading."""
+    at ``voltages`` (devices, points), and the noise of each compliance reading.
+
+    A p-n junction's reverse current is generation in the depletion layer; a Schottky
+    barrier's is thermionic emission over it (the same law as its forward IS: N = 1,
+    the reel's EG and XTI), which is how the leakage fit reads each material."""
     n = len(p)
     temp_text = fixed_text(25.0 + 0.2 * rng.standard_normal(n), 1)
     temp = as_read(temp_text) + ZERO_CELSIUS
-    gen = p["generation_current_A"].to_numpy() * generation_temperature_factor(temp, T_REF)
-    args = dict(shunt_resistance=p["shunt_resistance_ohm"].to_numpy()[:, None],
+    emission = {}
+    if sc.material == "schottky":
+        factor = leakage_temperature_factor(temp, T_REF, sc.eg, sc.xti, 1.0)
+        emission = {"generation_ideality": 1.0}
+    else:
+        factor = generation_temperature_factor(temp, T_REF)
+    gen = p["generation_current_A"].to_numpy() * factor
+    args = dict(**emission, shunt_resistance=p["shunt_resistance_ohm"].to_numpy()[:, None],
                 generation_current=gen[:, None], vj=p["vj_V"].to_numpy()[:, None],
                 m=p["m"].to_numpy()[:, None], temperature=temp[:, None],
                 breakdown_voltage=p["bv_V"].to_numpy()[:, None],
@@ -377,20 +429,23 @@ def compliance_voltage(args: dict, d: int, lo: float, hi: float) -> float:
                   lo, hi, xtol=1e-9)
 
 
-def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
+def leakage_files(p: pd.DataFrame, seed: int, reel: str,
+                  sc: Scenario = SILICON) -> dict[str, str]:
+    """The leakage sweep files of the parts in ``p`` (name -> text)."""
     rng = np.random.default_rng([seed, 3])
     out = {}
     n = len(p)
-    temp_text, args, cur, noisy, v_noise, i_noise = leakage_readings(p, LEAKAGE_VOLTAGES, rng)
+    voltages = np.array(sc.leakage_voltages)
+    temp_text, args, cur, noisy, v_noise, i_noise = leakage_readings(p, voltages, rng, sc)
     dev_rows, v_rows, i_rows, t_rows = [], [], [], []
     for d in range(n):
         over = np.flatnonzero(cur[d] >= LEAKAGE_COMPLIANCE)
-        stop = over[0] if over.size else len(LEAKAGE_VOLTAGES)
-        v_txt = fixed_text(LEAKAGE_VOLTAGES[:stop], 3)
+        stop = over[0] if over.size else len(voltages)
+        v_txt = fixed_text(voltages[:stop], 3)
         i_txt = sci_text(noisy[d, :stop], 4)
         if over.size:   # the source hits its current limit and reports the voltage reached
-            lo = LEAKAGE_VOLTAGES[stop - 1] if stop else 0.0
-            v_c = compliance_voltage(args, d, lo, LEAKAGE_VOLTAGES[stop])
+            lo = voltages[stop - 1] if stop else 0.0
+            v_c = compliance_voltage(args, d, lo, voltages[stop])
             v_txt += fixed_text([v_c + 1e-3 * v_noise[d]], 3)
             i_txt += sci_text([LEAKAGE_COMPLIANCE * (1 + 2e-4 * i_noise[d])], 4)
         dev_rows += [p["device"].iloc[d]] * len(v_txt)
@@ -398,13 +453,13 @@ def _leakage_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
         i_rows += i_txt
         t_rows += [temp_text[d]] * len(v_txt)
     dev_rows = np.array(dev_rows, dtype=object)
-    for j, sl in enumerate(_chunks(n, 60), start=1):
+    for j, sl in enumerate(_chunks(n, sc.leakage_chunk), start=1):
         names = set(p["device"].iloc[sl])
         keep = np.flatnonzero([x in names for x in dev_rows])
         head = [f"kinset demo reel {reel}: synthetic data (every value is invented)",
                 f"reverse leakage, devices {p['device'].iloc[sl.start]}-"
                 f"{p['device'].iloc[sl.stop - 1]}: source-measure unit, reverse sweep "
-                f"1..80 V, current limit 1 mA",
+                f"{voltages[0]:g}..{voltages[-1]:g} V, current limit 1 mA",
                 "a sweep that reaches the current limit stops there; its last row is the "
                 "voltage reached at the limit"]
         cols = [[dev_rows[i] for i in keep], [v_rows[i] for i in keep],
@@ -423,12 +478,21 @@ def cv_readings(sel: pd.DataFrame, rng) -> np.ndarray:
     return c * (1 + 2e-3 * rng.standard_normal(c.shape)) + 3e-15 * rng.standard_normal(c.shape)
 
 
-def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
-    import skrf
-
+def capacitance_files(p: pd.DataFrame, seed: int, reel: str,
+                      sc: Scenario = SILICON) -> dict[str, str]:
+    """C–V tables of the parts whose ``capacitance`` holds ``cv`` (none when the
+    scenario has no C–V biases), VNA files of those whose holds ``vna`` (name -> text)."""
     rng = np.random.default_rng([seed, 4])
     out = {}
-    sel = p[p["capacitance"] != ""].reset_index(drop=True)
+    sel = p[p["capacitance"].str.contains("cv")].reset_index(drop=True)
+    if sc.cv_voltages:
+        out.update(_cv_tables(sel, rng, reel))
+    out.update(_vna_files(p[p["capacitance"].str.contains("vna")], seed, reel, sc))
+    return out
+
+
+def _cv_tables(sel: pd.DataFrame, rng, reel: str) -> dict[str, str]:
+    out = {}
     c = cv_readings(sel, rng)
     k = len(CV_VOLTAGES)
     for j, sl in enumerate(_chunks(len(sel), 80), start=1):
@@ -443,19 +507,24 @@ def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
                 [f"{CV_FREQUENCY:.0f}"] * (nd * k)]
         out[f"capacitance/cv_{j:02d}.csv"] = _csv(
             head, ["device", "reverse_voltage_V", "capacitance_pF", "frequency_Hz"], cols)
+    return out
 
-    # VNA: one-port reflection of the packaged diode (RS, LS, Cj in series) in a fixture
-    # whose own capacitance is in parallel; one empty-fixture ("open") file per bias.
+
+def _vna_files(vna: pd.DataFrame, seed: int, reel: str, sc: Scenario) -> dict[str, str]:
+    """One-port reflection of the packaged diode (RS, LS, Cj in series) in a fixture
+    whose own capacitance is in parallel; one empty-fixture ("open") file per bias."""
+    import skrf
+
     rng = np.random.default_rng([seed, 5])
-    f = VNA_FREQUENCIES
+    out = {}
+    f = np.array(sc.vna_frequencies)
     freq = skrf.Frequency.from_f(f, unit="Hz")
     w = 2 * np.pi * f
-    y_fixture = w * FIXTURE_CAPACITANCE * (FIXTURE_LOSS_TANGENT + 1j)
-    vna = p[p["capacitance"] == "cv+vna"]
+    y_fixture = w * sc.fixture_capacitance * (FIXTURE_LOSS_TANGENT + 1j)
     index_rows = []
 
     def touchstone(name, gamma, comment):
-        noisy = gamma + VNA_NOISE * (rng.standard_normal(len(f))
+        noisy = gamma + sc.vna_noise * (rng.standard_normal(len(f))
                                      + 1j * rng.standard_normal(len(f)))
         net = skrf.Network(frequency=freq, s=noisy.reshape(-1, 1, 1), z0=Z0,
                            comments=comment, name=name[:-4])
@@ -463,27 +532,27 @@ def _capacitance_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
                                     format_spec_A="{:.6f}", format_spec_B="{:.6f}",
                                     format_spec_freq="{:.0f}")
 
-    for vr in VNA_VOLTAGES:
-        name = f"open_{vr:.0f}V.s1p"
+    for vr in sc.vna_voltages:
+        name = f"open_{vr:g}V.s1p"
         gamma = reflection_coefficient(1.0 / y_fixture, Z0)
         out[f"capacitance/{name}"] = touchstone(
             name, gamma, f"kinset demo reel {reel}: synthetic data\nempty fixture (open), "
-                   f"bias supply at {vr:.0f} V\ncalibrated at the fixture reference plane")
+                   f"bias supply at {vr:g} V\ncalibrated at the fixture reference plane")
         index_rows.append((name, "open", vr))
     for _, d in vna.iterrows():
-        for vr in VNA_VOLTAGES:
-            name = f"vna_{d['device']}_{vr:.0f}V.s1p"
+        for vr in sc.vna_voltages:
+            name = f"vna_{d['device']}_{vr:g}V.s1p"
             cj = junction_capacitance(vr, d["cjo_F"], d["vj_V"], d["m"])
             z = series_rlc_impedance(f, d["rs_ohm"], d["package_inductance_H"], cj)
             gamma = reflection_coefficient(1.0 / (1.0 / z + y_fixture), Z0)
             out[f"capacitance/{name}"] = touchstone(
                 name, gamma, f"kinset demo reel {reel}: synthetic data\n{d['device']} at "
-                       f"{vr:.0f} V reverse bias in the fixture\ncalibrated at the "
+                       f"{vr:g} V reverse bias in the fixture\ncalibrated at the "
                        f"fixture reference plane")
             index_rows.append((name, d["device"], vr))
     head = [f"kinset demo reel {reel}: synthetic data (every value is invented)",
-            "VNA one-port reflection files: 51 points 10 MHz..1 GHz, 50 ohm; device 'open' "
-            "is the empty fixture at that bias"]
+            f"VNA one-port reflection files: {len(f)} points {f[0] / 1e6:g} MHz.."
+            f"{f[-1] / 1e9:g} GHz, 50 ohm; device 'open' is the empty fixture at that bias"]
     cols = [[r[0] for r in index_rows], [r[1] for r in index_rows],
             fixed_text([r[2] for r in index_rows], 1), ["reflection"] * len(index_rows)]
     out["capacitance/index.csv"] = _csv(
@@ -512,11 +581,14 @@ def recovery_readings(sel: pd.DataFrame, t: np.ndarray, rng) -> np.ndarray:
     return i
 
 
-def _recovery_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
+def recovery_files(p: pd.DataFrame, seed: int, reel: str) -> dict[str, str]:
+    """The recovery waveform files of the parts whose ``recovery`` is set (name -> text)."""
     rng = np.random.default_rng([seed, 6])
     out = {}
     sel = p[p["recovery"]].reset_index(drop=True)
     nd = len(sel)
+    if not nd:
+        return out
     t_text = fixed_text((RECOVERY_START + RECOVERY_STEP * np.arange(RECOVERY_SAMPLES)) * 1e9, 1)
     t = as_read(t_text)[None, :] * 1e-9
     i = recovery_readings(sel, t, rng)
@@ -586,8 +658,11 @@ def _truth_file(p: pd.DataFrame, reel: str) -> str:
     return _csv(head, header, cols)
 
 
-def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFAULT_SEED,
-               layout: str | None = None) -> Path:
+KINDS = ("switching", "rf")
+
+
+def write_demo(out: str | Path, devices: int | None = None, seed: int | None = None,
+               layout: str | None = None, kind: str = "switching") -> Path:
     """Write a complete synthetic reel folder.
 
     Parameters
@@ -596,17 +671,20 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
         Folder to write; created if needed. Files a previous demo wrote there (the
         names this function uses) are replaced; other files are left alone. A
         ``reel.yaml`` that the demo did not write is never overwritten.
-    devices : int
-        Number of devices on the reel (at least 20).
-    seed : int
+    devices : int, optional
+        Number of devices on the reel (at least 20); default 240 (switching), 320 (rf).
+    seed : int, optional
         Seed for ``numpy.random.default_rng``; the same seed, device count and layout
-        give byte-identical files.
+        give byte-identical files. Default 412 (switching), 917 (rf).
     layout : {"workshop", "batches", "per-part"}, optional
         ``workshop``: the small reel of mixed instruments described above. ``batches``:
         every part on every station at production point counts, in batch files of 250
         part numbers; ``per-part``: the same, one file per part and station (see
         :mod:`kinset.demo_production`). Default: ``workshop`` up to the default 240
-        devices, ``batches`` above.
+        devices, ``batches`` above. The rf reel has the workshop layout only.
+    kind : {"switching", "rf"}
+        ``switching``: silicon switching diodes (``data_demo/``); ``rf``: small-signal
+        RF Schottky diodes (``data_demo_rf/``, :mod:`kinset.demo_rf`).
 
     Returns
     -------
@@ -619,29 +697,22 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
         When ``out`` holds a ``reel.yaml`` that is not a demo's.
     """
     out = Path(out)
-    devices = int(devices)
-    seed = int(seed)
+    if kind not in KINDS:
+        raise ValueError(f"kind must be one of {', '.join(KINDS)} (got {kind!r})")
+    if kind == "rf":
+        from kinset.demo_rf import DEFAULT_DEVICES as rf_devices, DEFAULT_SEED as rf_seed
+        devices, seed = rf_devices if devices is None else devices, \
+            rf_seed if seed is None else seed
+    devices = int(DEFAULT_DEVICES if devices is None else devices)
+    seed = int(DEFAULT_SEED if seed is None else seed)
     if seed < 0:
         raise ValueError(f"seed must be a non-negative integer (got {seed})")
     if layout is None:
-        layout = "workshop" if devices <= DEFAULT_DEVICES else "batches"
-    if layout not in LAYOUTS:
-        raise ValueError(f"layout must be one of {', '.join(LAYOUTS)} (got {layout!r})")
-    p = demo_parameters(devices, seed)
-    reel = f"demo-{seed:04d}"
-    files: dict[str, str] = {}
-    if layout == "workshop":
-        files.update(_forward_files(p, seed, reel))
-        files.update(_leakage_files(p, seed, reel))
-        files.update(_capacitance_files(p, seed, reel))
-        files.update(_recovery_files(p, seed, reel))
-        note = ""
-    else:
-        from kinset.demo_production import production_parameters
-        p = production_parameters(p, seed)
-        note = f"# Layout '{layout}': every part on every station, as a tester exports them.\n"
-    files["reel.yaml"] = _reel_yaml(reel, devices, seed).replace("\nreel:", f"\n{note}reel:", 1)
-    files["truth.csv"] = _truth_file(p, reel)
+        layout = "workshop" if devices <= DEFAULT_DEVICES or kind == "rf" else "batches"
+    if layout not in LAYOUTS or (kind == "rf" and layout != "workshop"):
+        allowed = "workshop" if kind == "rf" else ", ".join(LAYOUTS)
+        raise ValueError(f"layout must be one of {allowed} (got {layout!r})")
+    p, files = _reel_files(kind, devices, seed, layout)
     existing = out / "reel.yaml"
     if existing.is_file() and not existing.read_bytes().startswith(_YAML_MARK.encode()):
         raise FileExistsError(f"{existing} exists and was not written by kinset demo; "
@@ -655,5 +726,36 @@ def write_demo(out: str | Path, devices: int = DEFAULT_DEVICES, seed: int = DEFA
         _write(out / name, files[name])
     if layout != "workshop":
         from kinset.demo_production import write_production
-        write_production(out, p, seed, reel, layout)
+        write_production(out, p, seed, f"demo-{seed:04d}", layout)
     return out
+
+
+def _reel_files(kind: str, devices: int, seed: int, layout: str):
+    """The parameters and the files (name -> text) of one demo reel; a production layout's
+    station files are written afterwards (:func:`kinset.demo_production.write_production`)."""
+    files: dict[str, str] = {}
+    if kind == "rf":
+        from kinset.demo_rf import RF, rf_parameters, rf_reel_yaml
+        p = rf_parameters(devices, seed)
+        reel = f"demo-rf-{seed:04d}"
+        files.update(forward_files(p, seed, reel, RF))
+        files.update(leakage_files(p, seed, reel, RF))
+        files.update(capacitance_files(p, seed, reel, RF))
+        files["reel.yaml"] = rf_reel_yaml(_YAML_MARK, reel, devices, seed)
+        files["truth.csv"] = _truth_file(p, reel)
+        return p, files
+    p = demo_parameters(devices, seed)
+    reel = f"demo-{seed:04d}"
+    if layout == "workshop":
+        files.update(forward_files(p, seed, reel))
+        files.update(leakage_files(p, seed, reel))
+        files.update(capacitance_files(p, seed, reel))
+        files.update(recovery_files(p, seed, reel))
+        note = ""
+    else:
+        from kinset.demo_production import production_parameters
+        p = production_parameters(p, seed)
+        note = f"# Layout '{layout}': every part on every station, as a tester exports them.\n"
+    files["reel.yaml"] = _reel_yaml(reel, devices, seed).replace("\nreel:", f"\n{note}reel:", 1)
+    files["truth.csv"] = _truth_file(p, reel)
+    return p, files

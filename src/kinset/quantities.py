@@ -443,21 +443,28 @@ class Quantity:
     label: str = ""
     # (tables, condition, temperature) -> Evaluated; None: the column's value
     evaluator: Callable | None = None
+    # the table's columns of each device's lowest and highest condition it serves (the
+    # measured range; a condition outside every device's is said before matching)
+    measured: tuple[str, str] | None = None
 
 
 QUANTITIES: dict[str, Quantity] = {
     "forward_voltage": Quantity(
         "forward", "V", "at_current_A", "voltage", label="forward voltage",
-        evaluator=lambda t, c, temp: forward_voltage(t["forward"], c, temp, t.get("forward_readings"))),
+        evaluator=lambda t, c, temp: forward_voltage(t["forward"], c, temp, t.get("forward_readings")),
+        measured=("i_min_A", "i_max_A")),
     "forward_voltage_tempco": Quantity(
         "forward", "V_per_K", "at_current_A", label="forward-voltage temperature coefficient",
-        evaluator=lambda t, c, temp: forward_voltage_tempco(t["forward"], c, temp)),
+        evaluator=lambda t, c, temp: forward_voltage_tempco(t["forward"], c, temp),
+        measured=("i_min_A", "i_max_A")),
     "reverse_current": Quantity(
         "leakage", "A", "at_reverse_voltage_V", "current", label="reverse current",
-        evaluator=lambda t, c, temp: reverse_current(t["leakage"], c, temp)),
+        evaluator=lambda t, c, temp: reverse_current(t["leakage"], c, temp),
+        measured=("sweep_min_V", "model_max_V")),
     "capacitance": Quantity(
         "capacitance", "F", "at_reverse_voltage_V", "capacitance", label="capacitance",
-        evaluator=lambda t, c, temp: capacitance(t["capacitance"], c, t.get("capacitance_points"))),
+        evaluator=lambda t, c, temp: capacitance(t["capacitance"], c, t.get("capacitance_points")),
+        measured=("vr_min_V", "vr_max_V")),
     "recovery_time": Quantity("recovery", "s", None, "time", "trr_s", "recovery time trr"),
     "recovery_charge": Quantity("recovery", "C", None, None, "qrr_C", "recovered charge Qrr"),
     "peak_reverse_current": Quantity("recovery", "A", None, "current", "irrm_A",

@@ -140,15 +140,16 @@ class Plan:
         return options + (f" --sets-wanted {wanted}" if wanted is not None else "")
 
     def notices(self) -> list[str]:
-        """For each application, what the reel lacks and how to proceed (said when the
-        workflow starts; :mod:`kinset.matching.coverage`). A waiver of a match criterion
+        """For each application, what the reel lacks and how to proceed, and a profile made
+        for another material than the reel's (said when the workflow starts;
+        :mod:`kinset.matching.coverage`). A waiver of a match criterion
         is an error here, before any job runs."""
-        from kinset.matching.coverage import gaps, notice
+        from kinset.matching.coverage import gaps, misfits, notice, suit_notice
         out = []
         for name, profile in self.profiles.items():
             said = notice(name, [g.as_dict() for g in gaps(profile, set(self.datasets))])
-            if said is not None:
-                out.append(said.text())
+            suits = suit_notice(name, misfits(profile, self.reel.settings.get("material")))
+            out += [n.text() for n in (said, suits) if n is not None]
         return out
 
     def summary(self) -> list[str]:

@@ -12,6 +12,11 @@ screened part by part as always (a part without data is left out with its reason
 Every set formed with a screen skipped is marked in ``sets.csv`` (column
 ``unscreened``) and in the report. A match criterion cannot be waived: a set cannot be
 matched on what was not measured.
+
+A profile that does not suit the reel is said the same way (:func:`misfits`,
+:func:`suit_notice`): made for another junction material than reel.yaml's ``material``
+(the profile key ``materials``), or a condition (a current, a bias) outside every part's
+measured range, where no part can be compared at all.
 """
 
 from __future__ import annotations
@@ -19,7 +24,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from kinset.matching.profile import Profile, Screen
-from kinset.quantities import QUANTITIES
+from kinset.format import si
+from kinset.quantities import CONDITION_UNITS, QUANTITIES
 from kinset.registry import BY_NAME, NAMES
 
 # How the waiver is written, for the message (profile key, command option, config key).
@@ -119,3 +125,82 @@ def notice(application: str, found: list[dict]) -> Notice | None:
         proceed.append("or use a profile that does not match on what the reel lacks")
     return Notice(f"{application}: this reel has no {labels} data:", tuple(items),
                   tuple(proceed))
+
+
+# --------------------------------------------------------------------------- suitability
+
+def misfits(profile: Profile, material: str | None, tables: dict | None = None) -> list[dict]:
+    """How ``profile`` does not suit the reel, as dicts for summary.json (``kind``:
+    ``material`` or ``range``, ``text``, ``proceed``); empty when it suits.
+
+    ``material`` is reel.yaml's; ``tables`` the extraction tables (None in the workflow
+    plan, before anything is extracted: then only the material is compared). A condition
+    is out of range when it lies outside the span from the lowest to the highest
+    condition any part of the reel was measured at.
+    """
+    out = []
+    if profile.materials and material and material not in profile.materials:
+        made = " or ".join(profile.materials)
+        out.append({"kind": "material",
+                    "text": f"made for {made}, this reel is {material} (reel.yaml material): "
+                            "its currents, screens and tolerances are set for other parts",
+                    "proceed": f"use a profile made for {material}{_shipped_for(material)}, "
+                               "or copy this one and set its materials and numbers for "
+                               "these parts"})
+    seen = set()
+    for item in [*profile.screens, *profile.dimensions] if tables is not None else []:
+        key = (item.quantity, item.condition)
+        if key in seen or item.condition is None:
+            continue
+        seen.add(key)
+        span = _measured_span(item.quantity, tables)
+        if span is not None and not span[0] * (1 - SPAN_SLACK) <= item.condition \
+                <= span[1] * (1 + SPAN_SLACK):
+            out.append(_range_misfit(item, span))
+    return out
+
+
+SPAN_SLACK = 1e-6       # relative slack on the measured span (rounding of the files)
+
+
+def _shipped_for(material: str) -> str:
+    """' (shipped: a, b)': the shipped profiles made for ``material`` (or for any)."""
+    from kinset.io.config import read_yaml
+    from kinset.io.profiles import shipped_profiles
+    names = [n for n, path in sorted(shipped_profiles().items())
+             if material in (read_yaml(path)[0].get("materials") or [material])]
+    return f" (shipped: {', '.join(names)})" if names else ""
+
+
+def _measured_span(quantity: str, tables: dict):
+    """(lowest, highest) condition any part of the reel was measured at; None if unknown."""
+    q = QUANTITIES[quantity]
+    table = tables.get(q.dataset)
+    if q.measured is None or table is None or not all(c in table for c in q.measured):
+        return None
+    lo, hi = (table[c].to_numpy(dtype=float) for c in q.measured)
+    ok = (lo == lo) & (hi == hi)
+    return (float(lo[ok].min()), float(hi[ok].max())) if ok.any() else None
+
+
+def _range_misfit(item, span) -> dict:
+    q = QUANTITIES[item.quantity]
+    unit = CONDITION_UNITS[q.condition]
+    low, high, at = si(span[0], unit), si(span[1], unit), si(item.condition, unit)
+    label = BY_NAME[q.dataset].label
+    what = "current" if unit == "A" else "reverse bias"
+    return {"kind": "range",
+            "text": f"{item.describe()}: outside every part's measured range ({label} "
+                    f"{low}\u2013{high} on this reel): no part can be compared there",
+            "proceed": f"measure the {label} to {at}, or set the profile's {what} inside "
+                       f"{low}\u2013{high}"}
+
+
+def suit_notice(application: str, found: list[dict]) -> Notice | None:
+    """The notice of how a profile does not suit the reel (:func:`misfits`, as summary.json
+    holds them); None when it suits."""
+    if not found:
+        return None
+    return Notice(f"{application}: this profile does not suit this reel:",
+                  tuple(f["text"] for f in found),
+                  tuple(dict.fromkeys(f["proceed"] for f in found)))

@@ -76,6 +76,8 @@ class Profile:
     # screened quantities the user stated may go unscreened while the reel has no data
     # for them at all (key waive_screens, or kinset match --waive-screens)
     waive_screens: tuple[str, ...] = ()
+    # reel.yaml materials the profile is made for (key materials; empty: any)
+    materials: tuple[str, ...] = ()
 
     @classmethod
     def from_settings(cls, name: str, path: Path, settings: dict) -> "Profile":
@@ -85,7 +87,8 @@ class Profile:
                    set_size=int(settings["set_size"]), goal=str(settings["goal"]),
                    guard_band=str(settings["guard_band"]),
                    operating_temperature_C=float(settings["operating_temperature_C"]),
-                   waive_screens=tuple(settings.get("waive_screens") or ()))
+                   waive_screens=tuple(settings.get("waive_screens") or ()),
+                   materials=tuple(settings.get("materials") or ()))
 
     @property
     def temperature(self) -> float:

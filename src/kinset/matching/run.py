@@ -16,7 +16,7 @@ from scipy.spatial import cKDTree
 from kinset.errors import InputError
 from kinset.io.output import read_result, write_csv, write_text
 from kinset.matching.allocation import Allocation, tape_order
-from kinset.matching.coverage import gaps, notice, skipped_screens
+from kinset.matching.coverage import gaps, misfits, notice, skipped_screens, suit_notice
 from kinset.matching.criteria import (column_suffix, effective_tolerance, evaluate,
                                      format_amount, normalise, pair_guard, spread,
                                      spread_columns)
@@ -380,7 +380,9 @@ def run_match(results: str | Path, application: str, out: str | Path,
     applications before this one, whose placed parts it may not use; ``waive``: screened
     quantities waived from the command line (as the profile's ``waive_screens``);
     ``notify``: called, before matching, with the text of what the reel lacks and how to
-    proceed (:func:`kinset.matching.coverage.notice`), if it lacks anything.
+    proceed (:func:`kinset.matching.coverage.notice`), if it lacks anything, and of how
+    the profile does not suit the reel (:func:`~kinset.matching.coverage.suit_notice`:
+    another material, a condition outside every part's measured range), if it does not.
     """
     from kinset.io.ledger import check_ledger, read_ledger
     from kinset.matching.allocation import allocate, earlier_placements
@@ -389,8 +391,10 @@ def run_match(results: str | Path, application: str, out: str | Path,
     if waive:
         profile = profile.waiving(waive, "--waive-screens")
     said = notice(profile.name, [g.as_dict() for g in gaps(profile, set(tables))])
-    if said is not None and notify is not None:
-        notify(said.text())
+    unsuited = misfits(profile, reel.get("material"), tables)
+    for said in (said, suit_notice(profile.name, unsuited)):
+        if said is not None and notify is not None:
+            notify(said.text())
     if ledger is None:
         ledger = reel_ledger_path(results)
     book = read_ledger(ledger) if ledger is not None else None
@@ -403,6 +407,7 @@ def run_match(results: str | Path, application: str, out: str | Path,
         positions = dict(zip(d["device"].astype(str), d["position"]))
     alloc = allocate(profile.name, book, earlier_placements(list(after)))
     result = match(tables, devices, profile, reel.get("accuracy"), alloc, sets_wanted, positions)
+    result.summary["unsuited"] = unsuited
     write_match(result, out, positions)
     return result
 

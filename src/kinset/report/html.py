@@ -19,7 +19,7 @@ import pandas as pd
 from kinset import quantities as qty
 from kinset.format import si
 from kinset.outcomes import has_code
-from kinset.matching.coverage import notice
+from kinset.matching.coverage import notice, suit_notice
 from kinset.matching.profile import dimension_name
 from kinset.quantities import QUANTITIES
 from kinset.registry import BY_NAME, NAMES
@@ -182,7 +182,7 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
                "Unmatched parts.</p>" if len(picks) else
                ". Nothing to pull: why each part was left out is under Yield, first reason "
                "first, and every part's reasons under Unmatched parts.</p>")
-            + _gaps_box(inp)
+            + _suit_box(inp) + _gaps_box(inp)
             + f'<ul class="facts">{lis}</ul><nav>{nav}</nav></header>')
 
 
@@ -203,10 +203,22 @@ def _gaps_box(inp: ReportInputs) -> str:
     head = (f'<p class="unscreened">unscreened: {e(_unscreened_text(inp, skipped))}. Every '
             "set below was formed without this screen (waived: the reel has no data for it); "
             "sets.csv says so in its column unscreened.</p>") if skipped else ""
+    return _notice_box(said, "missing-data", head)
+
+
+def _notice_box(said, box_id: str, head: str = "") -> str:
+    """A notice (:class:`kinset.matching.coverage.Notice`) as a box on the first screen."""
     items = "".join(f"<li>{e(i)}</li>" for i in said.items)
     ways = "".join(f"<li>{e(w)}</li>" for w in said.proceed)
-    return (f'<div class="gaps" id="missing-data">{head}<p><b>{e(said.headline)}</b></p>'
+    return (f'<div class="gaps" id="{box_id}">{head}<p><b>{e(said.headline)}</b></p>'
             f"<ul>{items}</ul><p><b>How to proceed</b></p><ul>{ways}</ul></div>")
+
+
+def _suit_box(inp: ReportInputs) -> str:
+    """How the profile does not suit the reel (the match's notice,
+    :func:`kinset.matching.coverage.suit_notice`), first on the page."""
+    said = suit_notice(inp.profile.name, inp.summary.get("unsuited") or [])
+    return "" if said is None else _notice_box(said, "unsuited")
 
 
 CHECKS = {
