@@ -140,7 +140,7 @@ def _cmd_partners(args) -> None:
     profile = as_matched(args.results, application, load_profile(application))
     table = partner_table(tables, devices, profile, args.device,
                           reel.get("accuracy"), args.top, available=free)
-    print(f"best {'' if args.all else 'free '}partners for {args.device} under {application}:")
+    print(f"best {'' if args.all else 'free '}partners for {args.device} under {profile.name}:")
     print(partner_view(table, profile, args.device))
 
 
