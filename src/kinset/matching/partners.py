@@ -272,10 +272,12 @@ def blocking(values, rows, nearest: bool = True) -> Blocking:
                 _closest_on_a_line(v[:, 0], rows, best[:, 0], who[:, 0])
             continue
         tree, pts = cKDTree(v[:, others]), v[rows][:, others]
-        one[:, j] = tree.query_ball_point(pts, r=r, p=np.inf, return_length=True) - within
+        if not nearest:
+            one[:, j] = tree.query_ball_point(pts, r=r, p=np.inf, return_length=True) - within
         for lo in range(0, m if nearest else 0, BALL_CHUNK):
             hits = tree.query_ball_point(pts[lo:lo + BALL_CHUNK], r=r, p=np.inf)
-            _closest(v, rows, j, hits, best, who, lo)
+            one[lo:lo + BALL_CHUNK, j] = _closest(v, rows, j, hits, best, who, lo) \
+                - within[lo:lo + BALL_CHUNK]
     return _blocked(v, rows, best, who, one) if nearest else _counted_only(rows, one)
 
 
@@ -285,12 +287,13 @@ def _counted_only(rows, one) -> Blocking:
                     np.zeros(m, np.int64), one)
 
 
-def _closest(v, rows, j, hits, best, who, lo) -> None:
+def _closest(v, rows, j, hits, best, who, lo) -> np.ndarray:
     """For each part ``rows[lo + a]``, the part among ``hits[a]`` that is beyond the
-    tolerance on dimension ``j`` and nearest on it (ties: the lower row)."""
+    tolerance on dimension ``j`` and nearest on it (ties: the lower row); returns the
+    number of hits of each."""
     sizes = np.fromiter((len(h) for h in hits), dtype=np.int64, count=len(hits))
     if not sizes.sum():
-        return
+        return sizes
     flat = np.concatenate([np.asarray(h, dtype=np.int64) for h in hits])
     owner = np.repeat(np.arange(len(hits)), sizes) + lo
     e = np.abs(v[flat, j] - v[rows[owner], j])
@@ -299,6 +302,7 @@ def _closest(v, rows, j, hits, best, who, lo) -> None:
     order = np.lexsort((flat, e, owner))
     first = order[np.unique(owner[order], return_index=True)[1]]
     best[owner[first], j], who[owner[first], j] = e[first], flat[first]
+    return sizes
 
 
 def _closest_on_a_line(x, rows, best, who) -> None:
