@@ -142,6 +142,9 @@ def _cmd_partners(args) -> None:
                           reel.get("accuracy"), args.top, available=free)
     print(f"best {'' if args.all else 'free '}partners for {args.device} under {profile.name}:")
     print(partner_view(table, profile, args.device))
+    if not len(table) and not args.all:
+        print("(only parts in no set and not in the ledger are offered; --all lists every "
+              "part)", file=sys.stderr)
 
 
 def _cmd_report(args) -> None:

@@ -496,7 +496,8 @@ def partner_view(table: pd.DataFrame, profile: Profile, members, width: int = 10
             f"{misses}, most on {d.describe()} (first column)"))
     lines = [w for line in lines for w in textwrap.wrap(line, width, subsequent_indent="  ")]
     if not len(table):
-        return "\n".join(lines + ["no part to list"])
+        return "\n".join(lines + ["no part to list: none of those offered passed the data, "
+                                   "screens and guard bands"])
     left = [["device", "allowed"] + [str(v) for v in table["device"]],
             ["beyond", ""] + [str(sum(c[i].endswith("*") for c in cells))
                               for i in range(len(table))],
