@@ -91,7 +91,7 @@ def stand_in_match(results: Path, application: str, out: Path,
             i += 1
     sets = set_table(found, c, dims)
     placed = set(sets["device"])
-    no_set_reasons(c, placed, k)
+    no_set_reasons(c, placed, k, dims)
     un = unmatched_table(c.evaluation, placed)
     values = values_table(c, profile, un)
     if extra_unmatched:

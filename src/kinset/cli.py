@@ -135,7 +135,7 @@ def _print_table(title: str, table) -> None:
 
 
 def _cmd_partners(args) -> None:
-    from kinset.matching.partners import partner_table
+    from kinset.matching.partners import partner_table, partner_view
     from kinset.matching.profile import load_profile
     from kinset.matching.run import read_results
     from kinset.matching.upkeep import as_matched, unplaced_parts
@@ -148,8 +148,11 @@ def _cmd_partners(args) -> None:
     profile = as_matched(args.results, application, load_profile(application))
     table = partner_table(tables, devices, profile, args.device,
                           reel.get("accuracy"), args.top, available=free)
-    _print_table(f"best {'' if args.all else 'free '}partners for {args.device} under "
-                 f"{application}:", table)
+    print(f"best {'' if args.all else 'free '}partners for {args.device} under {profile.name}:")
+    print(partner_view(table, profile, args.device))
+    if not len(table) and not args.all:
+        print("(only parts in no set and not in the ledger are offered; --all lists every "
+              "part)", file=sys.stderr)
 
 
 def _cmd_report(args) -> None:

@@ -37,6 +37,8 @@ class Reason:
     code: str
     text: str
     criterion: str = ""   # the dimension or screen it concerns ('' for the whole part)
+    nearest: str = ""     # no set: the part that came nearest to being its partner
+    shortfall: float = float("nan")   # no set: by how much on ``criterion`` (its unit, or %)
 
     @classmethod
     def of(cls, code: str, about: str = "", **fields) -> "Reason":

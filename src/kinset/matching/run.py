@@ -22,7 +22,7 @@ from kinset.matching.criteria import (column_suffix, effective_tolerance, evalua
                                      spread_columns)
 from kinset.matching.graph import set_cost
 from kinset.matching.profile import Profile, load_profile
-from kinset.matching.reasons import Reason, stage_of
+from kinset.matching.reasons import REASONS, Reason, stage_of
 from kinset.matching.sets import form_sets
 from kinset.registry import NAMES, TABLES
 
@@ -182,18 +182,59 @@ def kept_table(alloc: Allocation, c: Candidates, profile: Profile) -> pd.DataFra
     return pd.DataFrame(rows, columns=set_columns(dims))
 
 
-def no_set_reasons(c: Candidates, placed: set, k: int) -> None:
-    """Why each candidate left unplaced found no set: partners within every tolerance."""
-    left = [d for d in c.devices if d not in placed]
-    neighbours = _neighbour_counts(c.z, [i for i, d in enumerate(c.devices) if d not in placed])
-    for dev, nb in zip(left, neighbours):
+def no_set_reasons(c: Candidates, placed: set, k: int, dims) -> None:
+    """Why each candidate left unplaced found no set: partners within every tolerance.
+
+    A part with none is told the criterion that keeps it out (``dims``: the profile's
+    dimensions, in the order of ``c.z``), the part nearest to being its partner and the
+    shortfall (:func:`kinset.matching.partners.blocking`); in a set of more than two, a
+    part with too few partners the criterion most of its near misses miss on."""
+    from kinset.matching.partners import blocking      # partners imports this module
+    rows = [i for i, d in enumerate(c.devices) if d not in placed]
+    neighbours = np.asarray(_neighbour_counts(c.z, rows), dtype=np.int64)
+    rows = np.asarray(rows, dtype=np.int64)
+    alone = rows[neighbours == 0]
+    few = rows[(neighbours > 0) & (neighbours + 1 < k)] if k > 2 else rows[:0]
+    why = {int(r): reason for r, reason in zip(alone, _nearest_reasons(
+        c, dims, blocking(c.z, alone)))}
+    few_block = blocking(c.z, few, nearest=False)
+    most = dict(zip(few.tolist(), zip(few_block.most_often(), few_block.one_miss)))
+    for i, nb in zip(rows.tolist(), neighbours.tolist()):
         if nb + 1 >= k:
             reason = Reason.of("partners_used")
         elif nb:
-            reason = Reason.of("too_few_partners", count=nb, needed=k - 1)
+            j, counts = most.get(i, (-1, None))
+            said = "" if j < 0 else REASONS.text(
+                "most_often_blocks", others=int(counts[j]), criterion=dims[j].describe())
+            reason = Reason.of("too_few_partners", dims[j].name if j >= 0 else "",
+                               count=nb, needed=k - 1, blocking=said)
         else:
-            reason = Reason.of("no_partner")
-        c.evaluation.reasons[dev].append(reason)
+            reason = why.get(i) or Reason.of("no_partner", nearest=REASONS.text("nearest_none"))
+        c.evaluation.reasons[c.devices[i]].append(reason)
+
+
+def _nearest_reasons(c: Candidates, dims, b) -> list[Reason]:
+    """The ``no_partner`` reason of each part of ``b`` (a :class:`Blocking`): the blocking
+    criterion, the part nearest on it, and the spread with it against the tolerance after
+    the guard band, in engineering units."""
+    out = []
+    for i, j, nb, misses in zip(b.rows, b.criterion, b.nearest, b.misses):
+        if nb < 0:
+            out.append(Reason.of("no_partner", nearest=REASONS.text("nearest_none")))
+            continue
+        d = dims[j]
+        apart = spread(c.raw[[i, nb], j], d)
+        allowed = c.tolerance[d.name]
+        words = {"device": c.devices[nb], "criterion": d.describe(),
+                 "apart": format_amount(apart, d, typical=False),
+                 "allowed": format_amount(allowed, d, typical=False),
+                 "short": format_amount(apart - allowed, d, typical=False)}
+        said = (REASONS.text("nearest_but_one", **words) if misses == 1 else
+                REASONS.text("nearest_misses", count=int(misses), **words))
+        out.append(replace(Reason.of("no_partner", d.name, nearest=said),
+                           nearest=str(c.devices[nb]),
+                           shortfall=(apart - allowed) * (100 if d.relative else 1)))
+    return out
 
 
 def unmatched_table(ev, placed: set) -> pd.DataFrame:
@@ -207,7 +248,17 @@ def unmatched_table(ev, placed: set) -> pd.DataFrame:
         "stage": [stage_of(r.code) for r in first],
         "reason_code": [r.code for r in first],
         "criterion": [r.criterion for r in first],
-    }, columns=["device", "reason", "stage", "reason_code", "criterion"])
+        "nearest": [r.nearest for r in first],
+        "shortfall": [r.shortfall for r in first],
+    }, columns=UNMATCHED_COLUMNS)
+
+
+UNMATCHED_COLUMNS = ["device", "reason", "stage", "reason_code", "criterion", "nearest",
+                     "shortfall"]
+"""unmatched.csv's columns (``position`` is inserted after ``reason`` when written).
+``nearest`` and ``shortfall``, for a part with no partner: the part that came nearest
+and by how much its spread with it on ``criterion`` exceeds the tolerance after the
+guard band (SI in the criterion's unit; percent for a percent tolerance)."""
 
 
 def values_table(c: Candidates, profile: Profile, unmatched: pd.DataFrame) -> pd.DataFrame:
@@ -287,7 +338,7 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
         for m in members:
             ev.reasons[pool.devices[m]].append(Reason.of("quota_reached", wanted=sets_wanted))
     no_set_reasons(pool, placed | {pool.devices[m] for s in dropped for m in s},
-                   profile.set_size)
+                   profile.set_size, dims)
     unmatched = unmatched_table(ev, placed)
     summary = _summary(profile, c, pool, alloc, sets, unmatched, (bound, method, optimal))
     summary["sets_wanted"] = sets_wanted
@@ -361,7 +412,7 @@ def write_match(result: MatchResult, folder: str | Path, positions: dict | None 
     pos = positions or {}
     sets.insert(2, "position", [pos.get(d, np.nan) for d in sets["device"]])
     un.insert(1, "position", [pos.get(d, np.nan) for d in un["device"]])
-    un = un[["device", "reason", "position", "stage", "reason_code", "criterion"]]
+    un = un[["device", "reason", "position"] + UNMATCHED_COLUMNS[2:]]
     write_csv(sets, folder / "sets.csv")
     write_csv(un, folder / "unmatched.csv")
     if result.values is not None:
