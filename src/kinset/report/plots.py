@@ -190,7 +190,8 @@ def scan_figure(lines: list[tuple[str, list[float], list[int], list[bool]]], key
     ax.plot([], [], linestyle="none", marker="o", markerfacecolor="white",
             markeredgecolor=INK, label="hollow: estimate (a lower bound)")
     ax.yaxis.set_major_locator(MaxNLocator(integer=True))
-    ax.set_ylim(bottom=0)
+    top = max([max(sets) for _, _, sets, _ in lines if sets] + [1])
+    ax.set_ylim(0, top * 1.08 + 0.5)         # an all-zero scan still gets 0 and 1 as ticks
     ax.set_xlabel("tolerance scale (this criterion alone; the others as in the profile)")
     ax.set_ylabel("sets")
     ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0))
