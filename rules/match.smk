@@ -20,6 +20,7 @@ rule match:
         unmatched=f"{OUT}/{{application}}/unmatched.csv",
         values=f"{OUT}/{{application}}/values.csv",
         summary=f"{OUT}/{{application}}/summary.json",
+        scan=f"{OUT}/{{application}}/tolerance_scan.csv",
     log:
         f"{OUT}/logs/match/{{application}}.log",
     params:

@@ -9,6 +9,7 @@ rule report:
         unmatched=f"{OUT}/{{application}}/unmatched.csv",
         values=f"{OUT}/{{application}}/values.csv",
         summary=f"{OUT}/{{application}}/summary.json",
+        scan=f"{OUT}/{{application}}/tolerance_scan.csv",
         devices=f"{OUT}/devices.csv",
         reel=f"{OUT}/reel.json",
         tables=PLAN.tables(),

@@ -92,7 +92,8 @@ def expected_files() -> set[str]:
                                                    "devices.csv", "reel.json"}
     for app in APPLICATIONS:
         files |= {f"{app}/{f}" for f in ("sets.csv", "unmatched.csv", "values.csv", "summary.json",
-                                         "report.html", "models.lib", "pick_list.csv")}
+                                         "report.html", "models.lib", "pick_list.csv",
+                                         "tolerance_scan.csv")}
     return files
 
 

@@ -83,16 +83,19 @@ def _progress(text: str) -> None:
 
 def _cmd_match(args) -> None:
     from kinset.matching.run import run_match, summary_line
+    from kinset.matching.scan import scan_line
     names = [a.strip() for a in args.application.split(",") if a.strip()]
     waive = tuple(q.strip() for q in (args.waive_screens or "").split(",") if q.strip())
     after = list(args.after or [])
     for name in names:      # in the order given: each after the ones before it
         out = Path(args.output) if len(names) == 1 else Path(args.output) / Path(name).stem
         result = run_match(args.results, name, out, args.ledger, after, args.sets_wanted,
-                           waive, _progress)
+                           waive, _progress, scan=not args.no_scan)
         after.append(out)
         _print_warnings(result.profile)
         print(summary_line(result.summary), file=sys.stderr)
+        if not args.no_scan:
+            print(scan_line(result.summary), file=sys.stderr)
 
 
 def _cmd_keep(args) -> None:
@@ -274,6 +277,7 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--after", nargs="+", help="match folders of applications served before "
                    "this one: their parts are not offered")
     a.add_argument("--sets-wanted", type=int, help="stop at this many sets (kept ones count)")
+    a.add_argument("--no-scan", action="store_true", help="skip tolerance_scan.csv")
     a.add_argument("--waive-screens", metavar="QUANTITY[,...]", help="screened quantities "
                    "(e.g. reverse_current) whose screens are skipped while the reel has no "
                    "data for them at all; every set formed so is marked unscreened "

@@ -23,6 +23,7 @@ from kinset.matching.criteria import (column_suffix, effective_tolerance, evalua
 from kinset.matching.graph import set_cost
 from kinset.matching.profile import Profile, load_profile
 from kinset.matching.reasons import REASONS, Reason, stage_of
+from kinset.matching.scan import tolerance_scan
 from kinset.matching.sets import form_sets
 from kinset.registry import NAMES, TABLES
 
@@ -54,6 +55,7 @@ class MatchResult:
     unmatched: pd.DataFrame
     summary: dict = field(default_factory=dict)
     values: pd.DataFrame | None = None
+    scan: pd.DataFrame | None = None      # tolerance_scan.csv (kinset.matching.scan)
 
 
 def _default_accuracy() -> dict:
@@ -309,13 +311,16 @@ def _form(pool: Candidates, profile: Profile, wanted: int | None):
 
 def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
           accuracy: dict | None = None, allocation: Allocation | None = None,
-          sets_wanted: int | None = None, positions: dict | None = None) -> MatchResult:
+          sets_wanted: int | None = None, positions: dict | None = None,
+          scan: bool = False) -> MatchResult:
     """Form the sets of one application; every device ends in sets or unmatched.
 
     ``allocation`` (:func:`kinset.matching.allocation.allocate`) holds the kept sets,
     which are re-checked and listed as they are, and the parts not offered; new sets are
     formed from the rest, at most ``sets_wanted`` in all (kept ones count), and numbered
     from ``allocation.first_new`` in tape order (``positions``: device -> pocket).
+    ``scan``: also count the sets as each tolerance is scaled (:mod:`kinset.matching.scan`)
+    on the same offered parts, and name the binding criterion in the summary.
     """
     alloc = allocation or Allocation(profile.name)
     c = candidates(tables, devices, profile, accuracy)
@@ -345,7 +350,23 @@ def match(tables: dict[str, pd.DataFrame], devices: list[str], profile: Profile,
     from kinset.matching.partners import broken_set_replacements   # partners imports run
     summary["broken_sets"] = {str(n): r for n, r in broken_set_replacements(
         c, alloc.kept, profile.set_size, [d.weight for d in dims], offered).items()}
-    return MatchResult(profile, sets, unmatched, summary, values_table(c, profile, unmatched))
+    table = _scan(pool, profile, len(found) + len(dropped), summary) if scan else None
+    return MatchResult(profile, sets, unmatched, summary, values_table(c, profile, unmatched),
+                       table)
+
+
+def _scan(pool: Candidates, profile: Profile, at_one: int, summary: dict) -> pd.DataFrame:
+    """tolerance_scan.csv's table; the binding criterion into ``summary``."""
+    found = tolerance_scan(pool, profile, at_one)
+    binding = found.binding()
+    summary["binding_criterion"] = binding["criterion"]
+    summary["tolerance_scan"] = {"method": found.method, "sets_at_1x": at_one,
+                                 "sets_at_1x_by_method": found.base,
+                                 "parts_offered": int(len(pool.devices)),
+                                 "binding_gain": binding["gain"],
+                                 "binding_scale": binding["scale"],
+                                 "binding_defined_as": binding["defined_as"]}
+    return found.table
 
 
 def _summary(profile: Profile, c: Candidates, pool: Candidates, alloc: Allocation,
@@ -404,7 +425,8 @@ def summary_line(summary: dict) -> str:
 
 
 def write_match(result: MatchResult, folder: str | Path, positions: dict | None = None) -> None:
-    """sets.csv, unmatched.csv, values.csv and summary.json in ``folder``."""
+    """sets.csv, unmatched.csv, values.csv, summary.json (and tolerance_scan.csv when the
+    match was scanned) in ``folder``."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     sets = result.sets.copy()
@@ -417,13 +439,15 @@ def write_match(result: MatchResult, folder: str | Path, positions: dict | None 
     write_csv(un, folder / "unmatched.csv")
     if result.values is not None:
         write_csv(result.values, folder / "values.csv")
+    if result.scan is not None:
+        write_csv(result.scan, folder / "tolerance_scan.csv")
     write_text(folder / "summary.json", json.dumps(result.summary, indent=2, sort_keys=True) + "\n")
 
 
 def run_match(results: str | Path, application: str, out: str | Path,
               ledger: str | Path | None = None, after: list[str | Path] = (),
               sets_wanted: int | None = None, waive: tuple[str, ...] = (),
-              notify=None) -> MatchResult:
+              notify=None, scan: bool = True) -> MatchResult:
     """One application on a results folder, written to ``out``.
 
     ``ledger``: the reel's ``ledger.csv`` (default: the one of the reel folder the results
@@ -433,7 +457,8 @@ def run_match(results: str | Path, application: str, out: str | Path,
     ``notify``: called, before matching, with the text of what the reel lacks and how to
     proceed (:func:`kinset.matching.coverage.notice`), if it lacks anything, and of how
     the profile does not suit the reel (:func:`~kinset.matching.coverage.suit_notice`:
-    another material, a condition outside every part's measured range), if it does not.
+    another material, a condition outside every part's measured range), if it does not;
+    ``scan``: also write ``tolerance_scan.csv`` (:mod:`kinset.matching.scan`).
     """
     from kinset.io.ledger import check_ledger, read_ledger
     from kinset.matching.allocation import allocate, earlier_placements
@@ -457,7 +482,8 @@ def run_match(results: str | Path, application: str, out: str | Path,
         d = read_result(devfile)
         positions = dict(zip(d["device"].astype(str), d["position"]))
     alloc = allocate(profile.name, book, earlier_placements(list(after)))
-    result = match(tables, devices, profile, reel.get("accuracy"), alloc, sets_wanted, positions)
+    result = match(tables, devices, profile, reel.get("accuracy"), alloc, sets_wanted, positions,
+                   scan=scan)
     result.summary["unsuited"] = unsuited
     write_match(result, out, positions)
     return result

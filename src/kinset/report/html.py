@@ -167,7 +167,8 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
     desc = p.description
     kept = [("kept", "Kept sets")] if s.get("kept_sets") else []
     nav = "".join(f'<a href="#{a}">{e(t)}</a>' for a, t in (
-        ("yield", "Yield"), *kept, ("pick-list", "Pick list"), ("distributions", "Distributions"),
+        ("yield", "Yield"), ("scan", "What would it take"), *kept, ("pick-list", "Pick list"),
+        ("distributions", "Distributions"),
         ("sets", "Sets"), ("unmatched", "Unmatched parts"), ("models", "SPICE models"),
         ("provenance", "Provenance"), ("cautions", "Cautions")))
     return (f"<header><h1>{e(title)}: matched sets from reel {e(inp.reel_id)}</h1>"
@@ -308,6 +309,35 @@ def _yield_section(inp: ReportInputs) -> str:
 
 def _stage_word(stage: str) -> str:
     return stage.replace("_", " ") if stage else "\u2013"
+
+
+def _scan_section(inp: ReportInputs) -> str:
+    """What would it take: sets as each tolerance alone is scaled (tolerance_scan.csv)."""
+    scan, s = inp.scan, inp.summary
+    if scan is None or not len(scan):
+        return ""
+    lines = [(name, rows["scale"].tolist(), rows["sets"].astype(int).tolist(),
+              (rows["method"] == "estimate").tolist())
+             for name, rows in scan.groupby("criterion", sort=False)]
+    fig = plots.scan_figure(lines, "fig-scan")
+    info = s.get("tolerance_scan", {}) or {}
+    binding = s.get("binding_criterion")
+    top = f"{info.get('binding_scale', 2):g}\u00d7"
+    said = (f"<b>{e(binding)}</b> binds: loosened alone to {top} its tolerance gains "
+            f"{e(info.get('binding_gain'))} sets, more than any other criterion."
+            if binding else f"No single criterion binds: loosening any one alone to {top} "
+            "gains no set.")
+    quota = (f" The counts ignore the quota of {e(s.get('sets_wanted'))} sets."
+             if s.get("sets_wanted") else "")
+    return ('<section id="scan"><h2>What would it take</h2>'
+            f'<p class="lead">{said}</p><figure>{fig}<figcaption>New sets as one '
+            "criterion's tolerance is scaled (0.5\u00d7 to 2\u00d7), the others as in the "
+            "profile; the guard band stays as computed (effective tolerance = scale \u00d7 "
+            "tolerance \u2212 guard). Counted, like the match itself, on the parts this "
+            "application is offered: parts in kept sets (the ledger) and parts taken by "
+            "earlier applications are not counted. Filled points: the matcher itself; hollow: "
+            "a fast greedy estimate, a lower bound (its method is named in "
+            "<code>tolerance_scan.csv</code>)." + quota + "</figcaption></figure></section>")
 
 
 def _reason_groups(un: pd.DataFrame) -> pd.DataFrame:
@@ -666,7 +696,8 @@ def render_page(inp: ReportInputs, names: dict[str, str], picks: pd.DataFrame, l
     title = f"{p.title} \u2013 reel {inp.reel_id} \u2013 kinset report"
     body = "\n".join([
         _header(inp, picks),
-        _yield_section(inp),          # the verdict first: how many, and why the rest not
+        _yield_section(inp),          # the verdict first: how many, why the rest not,
+        _scan_section(inp),           # and what would it take
         _kept_section(inp),
         _pick_section(picks, cells),
         _distributions_section(inp),

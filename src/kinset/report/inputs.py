@@ -48,6 +48,7 @@ class ReportInputs:
     summary: dict
     values: pd.DataFrame          # what the matcher compared (values.csv), by device
     files: list[InputFile] = field(default_factory=list)
+    scan: pd.DataFrame | None = None   # tolerance_scan.csv, when the match wrote one
 
     @property
     def reel_id(self) -> str:
@@ -176,11 +177,15 @@ def load_inputs(results: str | Path, application: str,
             reel = json.loads(path.read_text(encoding="utf-8"))
         except (json.JSONDecodeError, UnicodeDecodeError) as exc:
             raise InputError(f"not valid JSON: {exc}", path) from None
+    scan = None
+    if (match_folder / "tolerance_scan.csv").is_file():
+        scan = _read_csv(seen(match_folder / "tolerance_scan.csv"), "tolerance_scan.csv")
+        _need(scan, ("criterion", "scale", "sets", "method"), match_folder / "tolerance_scan.csv")
     profile_text = profile.path.read_text(encoding="utf-8")
     files.append(fingerprint(profile.path, _profile_label(profile)))
     return ReportInputs(results=results, match_folder=match_folder, profile=profile,
                         profile_text=profile_text, profile_label=_profile_label(profile),
                         reel=reel, tables=tables, devices=devices, sets=sets,
                         unmatched=unmatched, summary=summary, values=values.set_index("device"),
-                        files=files)
+                        files=files, scan=scan)
 

@@ -171,6 +171,34 @@ def funnel_figure(stages: list[tuple[str, int]], key: str) -> str:
                     "plot narrow")
 
 
+@styled
+def scan_figure(lines: list[tuple[str, list[float], list[int], list[bool]]], key: str) -> str:
+    """Sets against tolerance scale, one line per criterion (name, scales, sets, whether
+    each point is an estimate: drawn hollow); the profile's tolerance (1x) marked."""
+    fig = _figure(6.2, 2.6)
+    ax = fig.add_subplot()
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=0.62 / w, right=1 - 2.3 / w, bottom=0.42 / h, top=1 - 0.12 / h)
+    for i, (name, scales, sets, est) in enumerate(lines):
+        color = MEMBER_COLORS[i % len(MEMBER_COLORS)]
+        marker = MEMBER_MARKERS[i % len(MEMBER_MARKERS)]
+        ax.plot(scales, sets, color=color, marker=marker, label=name, markersize=3.6)
+        hollow = [j for j, flag in enumerate(est) if flag]
+        ax.plot([scales[j] for j in hollow], [sets[j] for j in hollow], linestyle="none",
+                marker=marker, markerfacecolor="white", markeredgecolor=color, markersize=3.6)
+    ax.axvline(1.0, color=LIMIT, linestyle="--", linewidth=0.8,
+               label="the profile's tolerance (1x)")
+    ax.plot([], [], linestyle="none", marker="o", markerfacecolor="white",
+            markeredgecolor=INK, label="hollow: estimate (a lower bound)")
+    ax.yaxis.set_major_locator(MaxNLocator(integer=True))
+    top = max([max(sets) for _, _, sets, _ in lines if sets] + [1])
+    ax.set_ylim(0, top * 1.08 + 0.5)         # an all-zero scan still gets 0 and 1 as ticks
+    ax.set_xlabel("tolerance scale (this criterion alone; the others as in the profile)")
+    ax.set_ylabel("sets")
+    ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0))
+    return svg_text(fig, key, "sets against tolerance scale, one line per criterion", "plot")
+
+
 # --------------------------------------------------------------------------- distributions
 
 @dataclass
