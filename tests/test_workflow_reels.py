@@ -149,6 +149,9 @@ def test_bad_reel_lists_are_clear_errors(reels, tmp_path):
     with pytest.raises(InputError, match="reel id 'demo-0412' is given by two reel folders") as e:
         make_plans(config)
     assert str(a) in str(e.value) and str(twin) in str(e.value)
+    config["reel"] = [str(a), str(a)]
+    with pytest.raises(InputError, match="is listed twice"):
+        make_plans(config)
     config["reel"] = [str(a), str(tmp_path / "missing")]
     with pytest.raises(InputError, match="missing"):
         make_plans(config)

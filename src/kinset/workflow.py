@@ -232,6 +232,9 @@ def make_plans(config: dict) -> "Plans":
         plan = make_plan({**config, "reel": folder})
         if plan.reel.id in plans:
             other = plans[plan.reel.id].reel.folder
+            if other.resolve() == plan.reel.folder.resolve():
+                raise InputError(f"reel folder {folder} is listed twice in config 'reel'",
+                                 plan.reel.folder)
             raise InputError(f"reel id '{plan.reel.id}' is given by two reel folders, {other} "
                              f"and {plan.reel.folder}: their results would share "
                              f"{plan.out}. Give each its own id ('reel:' in reel.yaml)",
