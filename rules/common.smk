@@ -14,25 +14,25 @@ def reel_folder(wildcards, input):
 
 
 def bucket_inputs(wildcards):
-    return PLAN.bucket_files(wildcards.dataset, wildcards.bucket)
+    return PLAN.of(wildcards).bucket_files(wildcards.dataset, wildcards.bucket)
 
 
 def application_profile(wildcards):
-    return PLAN.profile(wildcards.application)
+    return PLAN.of(wildcards).profile(wildcards.application)
 
 
 def earlier_sets(wildcards):
     """sets.csv and summary.json of the applications served before this one."""
-    return [f"{d}/{f}" for d in PLAN.earlier(wildcards.application)
+    return [f"{d}/{f}" for d in PLAN.of(wildcards).earlier(wildcards.application)
             for f in ("sets.csv", "summary.json")]
 
 
 def ledger_inputs(wildcards):
-    return PLAN.ledger_inputs()
+    return PLAN.of(wildcards).ledger_inputs()
 
 
 def match_options(wildcards):
-    return PLAN.match_options(wildcards.application)
+    return PLAN.of(wildcards).match_options(wildcards.application)
 
 
 def results_folder(wildcards, input):
@@ -44,12 +44,12 @@ def output_folder(wildcards, output):
 
 
 def vna_inputs(wildcards):
-    return PLAN.vna_files(wildcards.group)
+    return PLAN.of(wildcards).vna_files(wildcards.group)
 
 
 def vna_devices(wildcards):
-    return PLAN.vna_devices(wildcards.group)
+    return PLAN.of(wildcards).vna_devices(wildcards.group)
 
 
 def vna_rows(wildcards):
-    return PLAN.vna_digest(wildcards.group)
+    return PLAN.of(wildcards).vna_digest(wildcards.group)

@@ -5,7 +5,7 @@
 
 rule devices:
     input:
-        [f"{OUT}/{d}.csv" for d in PLAN.datasets],
+        PLAN.dataset_tables(),
     output:
         f"{OUT}/devices.csv",
     log:

@@ -19,19 +19,19 @@ rule report:
             f"{OUT}/{{application}}/report.html",
             category="Matched sets",
             subcategory="{application}",
-            labels={"application": "{application}", "file": "report page"},
+            labels={"reel": "{reel}", "application": "{application}", "file": "report page"},
         ),
         models=report(
             f"{OUT}/{{application}}/models.lib",
             category="Matched sets",
             subcategory="{application}",
-            labels={"application": "{application}", "file": "SPICE models"},
+            labels={"reel": "{reel}", "application": "{application}", "file": "SPICE models"},
         ),
         picks=report(
             f"{OUT}/{{application}}/pick_list.csv",
             category="Matched sets",
             subcategory="{application}",
-            labels={"application": "{application}", "file": "pick list"},
+            labels={"reel": "{reel}", "application": "{application}", "file": "pick list"},
         ),
     log:
         f"{OUT}/logs/report/{{application}}.log",

@@ -106,8 +106,12 @@ class Plan:
         text = json.dumps(used, sort_keys=True)
         return hashlib.sha256(text.encode()).hexdigest()[:16]
 
+    def dataset_tables(self) -> list[str]:
+        """The main table of each dataset the reel has (what devices.csv merges)."""
+        return [str(self.out / f"{d}.csv") for d in self.datasets]
+
     def targets(self) -> list[str]:
-        out = [str(self.out / f"{d}.csv") for d in self.datasets]
+        out = self.dataset_tables()
         out.append(str(self.out / "devices.csv"))
         out.append(str(self.out / "reel.json"))
         for name in self.applications:
@@ -265,6 +269,100 @@ def stopped(logs) -> str:
     if not errors:
         return "kinset: the run stopped: the failed job's log is printed above"
     return "\n".join(["kinset: the run stopped:"] + [f"  {e}" for e in errors])
+
+
+# The demo reels a fresh clone runs when --config names no reel: the silicon switching
+# diodes and the RF Schottky diodes. A default folder that does not exist is skipped (so
+# the workflow runs with either one alone); a folder the user names must exist.
+DEMO_REELS = ("data_demo", "data_demo_rf")
+
+
+def reel_folders(config: dict) -> list[str]:
+    """The reel folders of the workflow config: one path, several (a list, or
+    comma-separated), or by default every demo reel folder present."""
+    given = config.get("reel")
+    if given is None:
+        folders = [f for f in DEMO_REELS if Path(f).is_dir()]
+        if not folders:
+            raise InputError("no reel folder given and none of the demo reel folders "
+                             f"({', '.join(DEMO_REELS)}) is here: give one with "
+                             "--config reel=PATH", Path.cwd())
+        return folders
+    folders = given.split(",") if isinstance(given, str) else given
+    folders = [str(f).strip() for f in folders if str(f).strip()]
+    if not folders:
+        raise InputError("config 'reel' names no folder: give one or several, "
+                         "e.g. --config reel=PATH or reel=PATH1,PATH2", Path.cwd())
+    return folders
+
+
+def make_plans(config: dict) -> "Plans":
+    """One plan per reel folder of the config, each with every other config key."""
+    plans: dict[str, Plan] = {}
+    for folder in reel_folders(config):
+        plan = make_plan({**config, "reel": folder})
+        if plan.reel.id in plans:
+            other = plans[plan.reel.id].reel.folder
+            if other.resolve() == plan.reel.folder.resolve():
+                raise InputError(f"reel folder {folder} is listed twice in config 'reel'",
+                                 plan.reel.folder)
+            raise InputError(f"reel id '{plan.reel.id}' is given by two reel folders, {other} "
+                             f"and {plan.reel.folder}: their results would share "
+                             f"{plan.out}. Give each its own id ('reel:' in reel.yaml)",
+                             plan.reel.folder / "reel.yaml")
+        plans[plan.reel.id] = plan
+    return Plans(plans, Path(config["results"]))
+
+
+@dataclass
+class Plans:
+    """The plans of every reel of one workflow run, told apart by the ``{reel}`` wildcard.
+
+    The rules were written for one plan (``PLAN.parsed("forward")``, ``PLAN.reel_yaml``)
+    and stay so: an attribute of ``Plans`` that is not its own is that attribute of the
+    job's reel's plan, as an input function of the wildcards (a method becomes a function
+    taking the method's arguments and returning such an input function). Inside an input
+    function, ``of(wildcards)`` is the job's reel's plan. Every output path starts with
+    ``out`` (``<results>/{reel}``), so each reel keeps its own ``results/<reel id>/``.
+    """
+    by_id: dict[str, Plan]
+    results: Path
+
+    @property
+    def out(self) -> str:
+        """The output folder of every rule, with the ``{reel}`` wildcard."""
+        return str(self.results).replace("{", "{{").replace("}", "}}") + "/{reel}"
+
+    @property
+    def reel_pattern(self) -> str:
+        """The wildcard constraint of ``{reel}``: exactly the ids of this run's reels."""
+        return "|".join(re.escape(i) for i in sorted(self.by_id, key=len, reverse=True))
+
+    def of(self, wildcards) -> Plan:
+        return self.by_id[wildcards.reel]
+
+    def targets(self) -> list[str]:
+        return [t for plan in self.by_id.values() for t in plan.targets()]
+
+    def summary(self) -> list[str]:
+        """Each reel's last words (:meth:`Plan.summary`), one block per reel."""
+        return [line for plan in self.by_id.values() for line in plan.summary()]
+
+    def notices(self) -> list[str]:
+        """Each reel's notices; with several reels, each names its reel."""
+        several = len(self.by_id) > 1
+        return [f"reel {i}: {n}" if several else n
+                for i, plan in self.by_id.items() for n in plan.notices()]
+
+    def __getattr__(self, name: str):
+        if name.startswith("_") or (not hasattr(Plan, name)
+                                    and name not in Plan.__dataclass_fields__):
+            raise AttributeError(name)
+        if callable(getattr(Plan, name, None)):
+            def bind(*args):
+                return lambda wildcards: getattr(self.of(wildcards), name)(*args)
+            return bind
+        return lambda wildcards: getattr(self.of(wildcards), name)
 
 
 # Touchstone files are small and many (one per device and bias). A job per device would
