@@ -112,7 +112,8 @@ def test_config_errors_name_the_key_and_the_nearest_one():
         check_config({"resluts": "x"})
     with pytest.raises(InputError, match=r"^--config: max_jobs_per_dataset: .*integer"):
         check_config({"max_jobs_per_dataset": "many"})
-    assert check_config({})["reel"] == "data_demo"       # the schema's default, filled in
+    filled = check_config({})                              # the schema's defaults, filled in
+    assert filled["reel"] is None and filled["results"] == "results"   # None: the demo reels
 
 
 def test_errors_in_reads_kinset_errors_once_each(tmp_path):
