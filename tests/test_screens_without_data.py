@@ -118,7 +118,9 @@ def test_meter_readings_only_say_what_is_missing_before_matching(meter_only, cap
     extract(capsys, reel, results)
     err = kinset(capsys, "match", "--results", results, "--application", APP,
                  "-o", results / "plain")
-    block, summary_line = err.rsplit("\n", 2)[0], err.strip().splitlines()[-1]
+    lines = err.strip().splitlines()
+    at = next(i for i, line in enumerate(lines) if " new sets of " in line)
+    block, summary_line = "\n".join(lines[:at]), lines[at]
     assert summary_line.startswith(f"{APP}: 0 new sets")      # the notice comes first
     assert f"{APP}: this reel has no reverse leakage data" in block
     assert "screen on reverse current at 20 V cannot be applied" in block
