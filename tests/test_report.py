@@ -333,3 +333,22 @@ def test_reason_groups_quote_a_named_part_whole_and_count_every_part(reel):
         device, reason = text[len("e.g. "):].split(": ", 1)
         assert first[device] == reason
     assert sum(int(n) for _c, n in rows) == len(un)
+
+
+def test_the_first_screen_names_what_binds_from_the_tolerance_scan():
+    """The header's 'What binds' line comes from summary.json's tolerance scan: the binding
+    criterion in words (the profile's own description of it), its gain and scale; no line
+    without a scan."""
+    from types import SimpleNamespace
+    from kinset.matching.profile import load_profile
+    from kinset.report.html import binding_line
+    profile = load_profile("audio_clipper_pair")
+    dim = profile.dimensions[0]
+    inp = SimpleNamespace(profile=profile, summary={
+        "binding_criterion": dim.name,
+        "tolerance_scan": {"binding_scale": 2.0, "binding_gain": 7, "method": "full"}})
+    line = binding_line(inp)
+    assert f"<b>{dim.describe()}</b>" in line and "gains 7 sets" in line and "2\u00d7" in line
+    inp.summary["binding_criterion"] = None
+    assert "no single criterion" in binding_line(inp)
+    assert binding_line(SimpleNamespace(profile=profile, summary={})) == ""

@@ -183,7 +183,7 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
                "Unmatched parts.</p>" if len(picks) else
                ". Nothing to pull: why each part was left out is under Yield, first reason "
                "first, and every part's reasons under Unmatched parts.</p>")
-            + _suit_box(inp) + _gaps_box(inp)
+            + binding_line(inp) + _suit_box(inp) + _gaps_box(inp)
             + f'<ul class="facts">{lis}</ul><nav>{nav}</nav></header>')
 
 
@@ -309,6 +309,25 @@ def _yield_section(inp: ReportInputs) -> str:
 
 def _stage_word(stage: str) -> str:
     return stage.replace("_", " ") if stage else "\u2013"
+
+
+def binding_line(inp: ReportInputs) -> str:
+    """The verdict's last word: which criterion binds (from the tolerance scan)."""
+    s = inp.summary
+    info = s.get("tolerance_scan", {}) or {}
+    binding = s.get("binding_criterion")
+    if not info:
+        return ""
+    named = {d.name: d.describe() for d in inp.profile.dimensions}
+    if not binding:
+        return ('<p class="lead">What binds: no single criterion; loosening any one alone '
+                f"to {info.get('binding_scale', 2):g}\u00d7 gains no set "
+                '(<a href="#scan">what would it take</a>).</p>')
+    how = " (estimated)" if info.get("method") == "estimate" else ""
+    return (f'<p class="lead">What binds: <b>{e(named.get(binding, binding))}</b>; loosened '
+            f"alone to {info.get('binding_scale', 2):g}\u00d7 its tolerance gains "
+            f"{e(info.get('binding_gain'))} sets{how} "
+            '(<a href="#scan">what would it take</a>).</p>')
 
 
 def _scan_section(inp: ReportInputs) -> str:
