@@ -1,0 +1,52 @@
+"""The report's first screen, as an RF engineer opens it: a Chromium screenshot at
+1400×900 of a small RF Schottky reel's ring-mixer page shows the sets formed, the yield
+and what binds, all above the fold. The screenshot is kept as a test artifact in
+``test-artifacts/`` (ignored by git) for a person to look at."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from chromium_tools import BrowserError, find_chromium, open_page
+from kinset.cli import main
+from kinset.demo import write_demo
+from report_tools import extract_results
+
+ARTIFACTS = Path(__file__).resolve().parents[1] / "test-artifacts"
+
+# Bottom edge [px] of each element, as Chromium lays the page out in a 1400×900 window.
+LAYOUT = """JSON.stringify({
+  facts: document.querySelector('ul.facts').getBoundingClientRect().bottom,
+  binds: [...document.querySelectorAll('p.lead')].filter(p => p.textContent
+           .startsWith('What binds')).map(p => p.getBoundingClientRect().bottom)[0] ?? -1,
+  yield_top: document.getElementById('yield').getBoundingClientRect().top,
+  sets_text: document.querySelector('ul.facts li b').textContent
+})"""
+
+
+@pytest.mark.skipif(find_chromium() is None, reason="chromium is not installed")
+def test_rf_ring_mixer_first_screen_shows_sets_yield_and_what_binds(tmp_path):
+    reel = write_demo(tmp_path / "reel", devices=80, kind="rf")
+    results = extract_results(reel, tmp_path / "results")
+    out = tmp_path / "ring_mixer_quad"
+    main(["match", "--results", str(results), "--application", "ring_mixer_quad", "-o", str(out)])
+    main(["report", "--results", str(results), "--application", "ring_mixer_quad", "-o", str(out)])
+    summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    sets = pd.read_csv(out / "sets.csv")["set"].nunique()
+    try:
+        page = open_page((out / "report.html").resolve().as_uri(), width=1400, height=900,
+                         shot_height=900, expression=LAYOUT)
+    except BrowserError as exc:
+        pytest.fail(f"headless Chromium failed: {exc}")
+    ARTIFACTS.mkdir(exist_ok=True)
+    (ARTIFACTS / "first_screen_ring_mixer_quad.png").write_bytes(page.screenshot)
+    layout = json.loads(page.value)
+    assert page.errors == []
+    assert summary["sets"] == sets > 0 and int(layout["sets_text"]) == sets
+    assert 0 < layout["facts"] <= 900             # the counts of sets and parts
+    assert 0 < layout["binds"] <= 900             # what binds (tolerance scan)
+    assert 0 < layout["yield_top"] < 900          # the yield starts on the first screen
