@@ -335,14 +335,16 @@ def _scan_section(inp: ReportInputs) -> str:
     scan, s = inp.scan, inp.summary
     if scan is None or not len(scan):
         return ""
-    lines = [(name, rows["scale"].tolist(), rows["sets"].astype(int).tolist(),
+    named = {d.name: d.describe() for d in inp.profile.dimensions}
+    lines = [(named.get(name, name), rows["scale"].tolist(), rows["sets"].astype(int).tolist(),
               (rows["method"] == "estimate").tolist())
              for name, rows in scan.groupby("criterion", sort=False)]
     fig = plots.scan_figure(lines, "fig-scan")
     info = s.get("tolerance_scan", {}) or {}
     binding = s.get("binding_criterion")
     top = f"{info.get('binding_scale', 2):g}\u00d7"
-    said = (f"<b>{e(binding)}</b> binds: loosened alone to {top} its tolerance gains "
+    said = (f"<b>{e(named.get(binding, binding))}</b> binds: loosened alone to {top} its "
+            "tolerance gains "
             f"{e(info.get('binding_gain'))} sets, more than any other criterion."
             if binding else f"No single criterion binds: loosening any one alone to {top} "
             "gains no set.")
