@@ -80,7 +80,7 @@ def cases(folder: Path = HERE) -> list[Case]:
     out = []
     for p in sorted(folder.glob("*.cir")):
         text = p.read_text()
-        sweep = re.search(r"^\s*dc\s", "\n".join(ngspice_tools._control_lines(text)),
+        sweep = re.search(r"^\s*dc\s", "\n".join(ngspice_tools.control_lines(text)),
                           re.IGNORECASE | re.MULTILINE) is not None
         out.append(Case(p.stem, p, p.with_suffix(".csv"), card_of(text), sweep))
     return out

@@ -1,0 +1,1 @@
+"""Each matched set simulated in its application's reference circuit (ngspice)."""
