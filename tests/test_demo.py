@@ -89,7 +89,7 @@ def test_demo_reel_yaml_validates(demo):
     assert reel.settings["leakage"] == {"report_at_V": [20], "breakdown_current_A": 1.0e-4}
     assert reel.settings["recovery"]["end"] == {"fraction_of_peak": 0.1}
     raw = yaml.safe_load((demo / "reel.yaml").read_text(encoding="utf-8"))
-    assert raw["applications"] == ["ring_mixer_quad", "audio_clipper_pair"]   # the contract's pair
+    assert raw["applications"] == ["audio_clipper_pair", "ring_mixer_quad"]   # the contract's pair, pairs first
 
 
 def test_every_forward_file_reads(demo, truth):

@@ -638,8 +638,10 @@ recovery:
 leakage:
   report_at_V: [20]
   breakdown_current_A: 1.0e-4
-# The workshop's two jobs this week: mixer quads and overdrive clipper pairs.
-applications: [ring_mixer_quad, audio_clipper_pair]
+# The workshop's two jobs this week: overdrive clipper pairs first (these silicon parts
+# are made for them), then what is left offered to the mixer-quad profile, which is made
+# for Schottky parts and says so at the top of its report.
+applications: [audio_clipper_pair, ring_mixer_quad]
 """
 
 
