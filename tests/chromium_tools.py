@@ -125,11 +125,13 @@ def _errors(events: list[dict]) -> list[str]:
 
 
 def open_page(url: str, width: int = 1280, height: int = 900, timeout: float = 40.0,
-              shot_height: int = 3000, expression: str | None = None) -> PageResult:
+              shot_height: int = 3000, expression: str | None = None,
+              media: str | None = None) -> PageResult:
     """Load ``url`` in headless Chromium; return its console errors and a PNG of the top
     ``shot_height`` pixels of the page (or all of it, if shorter), and the value of a
     JavaScript ``expression`` evaluated by the browser on the loaded page (layout
-    questions: where an element is)."""
+    questions: where an element is). ``media="print"`` lays the page out with its print
+    style sheet (CSS media emulation), as it would be printed at ``width`` pixels."""
     exe = find_chromium()
     if exe is None:
         raise BrowserError("chromium not found")
@@ -161,6 +163,8 @@ def open_page(url: str, width: int = 1280, height: int = 900, timeout: float = 4
                                                       "flatten": True})["sessionId"]
         for domain in ("Runtime.enable", "Log.enable", "Page.enable"):
             pipe.call(domain, session=session)
+        if media is not None:
+            pipe.call("Emulation.setEmulatedMedia", {"media": media}, session=session)
         pipe.call("Page.navigate", {"url": url}, session=session)
         pipe.wait_for("Page.loadEventFired", timeout)
         metrics = pipe.call("Page.getLayoutMetrics", session=session)

@@ -1,6 +1,7 @@
 """The report's first screen, as an RF engineer opens it: a Chromium screenshot at
 1400×900 of a small RF Schottky reel's ring-mixer page shows the sets formed, the yield
-and what binds, all above the fold. The screenshot is kept as a test artifact in
+and what binds, all above the fold; printed (CSS print media, A4 width) its long tables
+print whole and nothing runs off the sheet. The screenshots are kept as test artifacts in
 ``test-artifacts/`` (ignored by git) for a person to look at."""
 
 from __future__ import annotations
@@ -50,3 +51,27 @@ def test_rf_ring_mixer_first_screen_shows_sets_yield_and_what_binds(tmp_path):
     assert 0 < layout["facts"] <= 900             # the counts of sets and parts
     assert 0 < layout["binds"] <= 900             # what binds (tolerance scan)
     assert 0 < layout["yield_top"] < 900          # the yield starts on the first screen
+
+    # The same page printed (CSS print media, A4 at 96 px/in: 794 px wide): long tables,
+    # which scroll in their own box on screen, print whole, and nothing is wider than the sheet.
+    try:
+        printed = open_page((out / "report.html").resolve().as_uri(), width=794, height=1123,
+                            shot_height=1123, expression=PRINT_LAYOUT, media="print")
+    except BrowserError as exc:
+        pytest.fail(f"headless Chromium failed: {exc}")
+    (ARTIFACTS / "print_ring_mixer_quad.png").write_bytes(printed.screenshot)
+    boxes = json.loads(printed.value)
+    assert printed.errors == []
+    assert boxes["long"] > 0, "the page has no long table to check"
+    assert boxes["hidden_rows_px"] == 0           # every row of every long table is laid out
+    assert boxes["page_width"] <= 794              # no table or figure runs off the sheet
+
+
+# In print media: how many tables are long (scroll on screen), how many pixels of them
+# their boxes still hide, and the page's laid-out width.
+PRINT_LAYOUT = """JSON.stringify({
+  long: document.querySelectorAll('.long').length,
+  hidden_rows_px: Math.max(0, ...[...document.querySelectorAll('.long')].map(
+      b => b.scrollHeight - b.clientHeight)),
+  page_width: document.documentElement.scrollWidth
+})"""
