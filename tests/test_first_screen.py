@@ -1,6 +1,7 @@
-"""The report's first screen, as an RF engineer opens it: a Chromium screenshot at
-1400×900 of a small RF Schottky reel's ring-mixer page shows the sets formed, the yield
-and what binds, all above the fold; printed (CSS print media, A4 width) its long tables
+"""The report's first screen, as its user opens it: a Chromium screenshot at 1400×900
+of the first application's page of each demo reel kind (a small RF Schottky reel's ring
+mixer quads, a silicon switching-diode reel's clipper pairs) shows the sets formed, the
+yield and what binds, all above the fold; printed (CSS print media, A4 width) its long tables
 print whole and nothing runs off the sheet. The screenshots are kept as test artifacts in
 ``test-artifacts/`` (ignored by git) for a person to look at."""
 
@@ -30,12 +31,15 @@ LAYOUT = """JSON.stringify({
 
 
 @pytest.mark.skipif(find_chromium() is None, reason="chromium is not installed")
-def test_rf_ring_mixer_first_screen_shows_sets_yield_and_what_binds(tmp_path):
-    reel = write_demo(tmp_path / "reel", devices=80, kind="rf")
+@pytest.mark.parametrize("kind, application", [("rf", "ring_mixer_quad"),
+                                               ("switching", "audio_clipper_pair")])
+def test_first_screen_shows_sets_yield_and_what_binds(tmp_path, kind, application):
+    """Each demo reel's first application (its reel.yaml lists it first)."""
+    reel = write_demo(tmp_path / "reel", devices=80, kind=kind)
     results = extract_results(reel, tmp_path / "results")
-    out = tmp_path / "ring_mixer_quad"
-    main(["match", "--results", str(results), "--application", "ring_mixer_quad", "-o", str(out)])
-    main(["report", "--results", str(results), "--application", "ring_mixer_quad", "-o", str(out)])
+    out = tmp_path / application
+    main(["match", "--results", str(results), "--application", application, "-o", str(out)])
+    main(["report", "--results", str(results), "--application", application, "-o", str(out)])
     summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
     sets = pd.read_csv(out / "sets.csv")["set"].nunique()
     try:
@@ -44,7 +48,7 @@ def test_rf_ring_mixer_first_screen_shows_sets_yield_and_what_binds(tmp_path):
     except BrowserError as exc:
         pytest.fail(f"headless Chromium failed: {exc}")
     ARTIFACTS.mkdir(exist_ok=True)
-    (ARTIFACTS / "first_screen_ring_mixer_quad.png").write_bytes(page.screenshot)
+    (ARTIFACTS / f"first_screen_{application}.png").write_bytes(page.screenshot)
     layout = json.loads(page.value)
     assert page.errors == []
     assert summary["sets"] == sets > 0 and int(layout["sets_text"]) == sets
@@ -59,7 +63,7 @@ def test_rf_ring_mixer_first_screen_shows_sets_yield_and_what_binds(tmp_path):
                             shot_height=1123, expression=PRINT_LAYOUT, media="print")
     except BrowserError as exc:
         pytest.fail(f"headless Chromium failed: {exc}")
-    (ARTIFACTS / "print_ring_mixer_quad.png").write_bytes(printed.screenshot)
+    (ARTIFACTS / f"print_{application}.png").write_bytes(printed.screenshot)
     boxes = json.loads(printed.value)
     assert printed.errors == []
     assert boxes["long"] > 0, "the page has no long table to check"
