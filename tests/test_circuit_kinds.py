@@ -18,12 +18,15 @@ Outside sources, named beside each check:
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
 import scipy.constants as sc
+import yaml
 from scipy.optimize import brentq
 
+import kinset
 from kinset.circuit.kinds import Circuit, kind_module
 from kinset.circuit.kinds import common
 from kinset.circuit.ngspice import RunResult, Table, control_lines
@@ -309,3 +312,25 @@ def test_bridge_pedestal_vanishes_for_equal_cards_and_follows_the_stronger_diode
                                                             rel=TRACKING_REL), k
     for t, a in zip(together, alone):
         assert t == pytest.approx(a, abs=PEDESTAL_SIDE_V)
+
+
+# ---------------------------------------------------------------------------- profiles
+
+APPLICATIONS = Path(kinset.__file__).parent / "applications"
+MINE = {"audio_clipper_pair": "clipper", "germanium_clipper_pair": "clipper",
+        "detector_pair": "detector_pair", "sampling_bridge_quad": "sampling_bridge",
+        "varactor_tracking_pair": "varactor_pair"}
+
+
+@pytest.mark.parametrize("name,kind", sorted(MINE.items()))
+def test_shipped_profiles_name_the_kinds_parameters_and_figures(name, kind):
+    # the interface (kinset.circuit.kinds): a profile key not in PARAMETERS is an error;
+    # limits are min_/max_ of a FIGURES column; set_size equals POSITIONS
+    profile = yaml.safe_load((APPLICATIONS / f"{name}.yaml").read_text(encoding="utf-8"))
+    section = profile["circuit"]
+    m = kind_module(kind)
+    assert section["kind"] == kind and profile["set_size"] == m.POSITIONS
+    keys = set(section) - {"kind", "limits"}
+    assert keys == set(m.PARAMETERS)           # every key given, each with its reason
+    for limit in section.get("limits", {}):
+        assert limit.split("_", 1)[0] in ("min", "max") and limit.split("_", 1)[1] in m.FIGURES
