@@ -116,7 +116,7 @@ class Plan:
         out.append(str(self.out / "reel.json"))
         for name in self.applications:
             out += [str(self.out / name / f) for f in ("sets.csv", "unmatched.csv", "values.csv",
-                                                   "summary.json")]
+                                                   "summary.json", "circuit.csv")]
             out += [str(self.out / name / f) for f in REPORT_OUTPUTS]
         return out
 

@@ -77,6 +77,10 @@ FIGURES: dict[str, str] = {
                           "IF load, small RF tone",
 }
 
+#: Which way each figure is better (the report ranks sets by it; optional in a kind).
+BETTER = {"lo_if_isolation_dB": "higher", "lo_rf_isolation_dB": "higher",
+          "if_dc_offset_V": "smaller_magnitude", "conversion_loss_dB": "lower"}
+
 TABLE = "ring_mixer.txt"
 
 
