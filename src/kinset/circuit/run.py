@@ -27,10 +27,9 @@ import pandas as pd
 from kinset import __version__
 from kinset.circuit.kinds import Circuit, kind_module
 from kinset.circuit.ngspice import NgspiceError, find_ngspice, run_deck
+from kinset.circuit.words import figure_label, figure_unit
 from kinset.errors import InputError
 from kinset.io.output import read_result, write_csv, write_text
-from kinset.report.inputs import load_inputs
-from kinset.report.spice import model_names, models_lib
 
 #: Circuits per deck. Measured on the ring mixer (one 2 µs transient, ngspice 39, a
 #: shared 2-core machine): 10 per deck 42 ms a circuit, 25: 21 ms, 50: 23 ms, 100: 30 ms,
@@ -101,6 +100,7 @@ def plan(sets: pd.DataFrame, values: pd.DataFrame, dimensions, cards: dict[str, 
     """One row per set (``set``, ``reference_device``, ``note``) and the circuits to run
     (the set's as ``s<set>``, its reference as ``r<set>``); a set with a member without a
     card gets a note and no circuit."""
+    from kinset.report.spice import model_names
     names = model_names(sets["device"].astype(str))
     rows, circuits = [], []
     order = sets.assign(_pos=pd.to_numeric(sets["position"], errors="coerce"))
@@ -150,16 +150,6 @@ def simulate(module, circuits: list[Circuit], params: dict, cards: dict[str, str
     return out
 
 
-def figure_label(module, figure: str) -> str:
-    """A figure's name in words (its FIGURES text up to the first colon or bracket)."""
-    return re.split(r"[:(]", module.FIGURES[figure])[0].strip()
-
-
-def figure_unit(figure: str) -> str:
-    """The unit in a figure's column name (``lo_if_isolation_dB`` -> ``dB``)."""
-    return figure.rsplit("_", 1)[-1]
-
-
 def missed_limits(spec, module, row: dict) -> str:
     """The limits a set's figures miss, in words; empty if none (or not simulated)."""
     out = []
@@ -204,6 +194,7 @@ def load_cards(inputs, models: str | Path | None) -> tuple[dict[str, str], dict[
         except OSError as exc:
             raise InputError(f"cannot read the models: {exc.strerror}", models) from None
         return read_cards(text)
+    from kinset.report.spice import models_lib
     lib, _, _ = models_lib(inputs.sets, inputs.tables, inputs.reel, inputs.profile.title,
                            __version__)
     return read_cards(lib)
@@ -228,6 +219,7 @@ def run_circuit(results: str | Path, application: str, out: str | Path | None = 
         note = f"the profile {profile.name} has no circuit: section; nothing to simulate"
         write_text(path, f"# {note}\nset,note\n")
         return CircuitResult(path, pd.DataFrame(columns=["set", "note"]), note=note)
+    from kinset.report.inputs import load_inputs
     module = kind_module(spec.kind)
     inputs = load_inputs(results, application, folder)
     cards, why = load_cards(inputs, models)

@@ -15,7 +15,7 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from kinset.circuit.kinds import kind_module
-from kinset.circuit.run import figure_label, figure_unit
+from kinset.circuit.words import figure_label, figure_unit
 from kinset.errors import InputError
 from kinset.report import plots
 
