@@ -240,6 +240,18 @@ def run_circuit(results: str | Path, application: str, out: str | Path | None = 
     return CircuitResult(path, table, spec.kind, dict(module.FIGURES), note)
 
 
+def written(path: str | Path, spec) -> CircuitResult | None:
+    """A circuit.csv written earlier, as a result for :func:`summary_line` (None if absent
+    or the profile names no circuit)."""
+    path = Path(path)
+    if spec is None or not path.is_file():
+        return None
+    table = pd.read_csv(path, comment="#", keep_default_na=False, na_values=[""])
+    notes = table["note"].dropna().astype(str) if "note" in table else pd.Series([], dtype=str)
+    note = INSTALL_NOTE if len(notes) and (notes == INSTALL_NOTE).all() else ""
+    return CircuitResult(path, table, spec.kind, dict(kind_module(spec.kind).FIGURES), note)
+
+
 def summary_line(result: CircuitResult) -> str:
     """One line: sets simulated, the first figure's median against the reference's, misses."""
     t = result.table

@@ -127,7 +127,9 @@ def circuit_section(inp, table_html) -> str:
              f"<b>{e(spec.kind.replace('_', ' '))}</b> ({e(params)}), with its own fitted "
              "cards from <code>models.lib</code>, beside the same circuit built from four "
              "copies of the set's median part (the ideally matched reference; in brackets). "
-             "The reference circuit idealises everything but the diodes; see "
+             "Where symmetry cancels a figure in an ideally matched set (the LO at a "
+             "balanced port), the reference shows the simulator's numerical floor, not a "
+             "physical limit. The reference circuit idealises everything but the diodes; see "
              "<code>kinset.circuit.kinds." + e(spec.kind) + "</code>.</p>")
     if spec.expect:
         intro += f'<p><b>The profile expects:</b> {e(spec.expect)}</p>'

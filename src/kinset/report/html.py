@@ -168,7 +168,7 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
     desc = p.description
     kept = [("kept", "Kept sets")] if s.get("kept_sets") else []
     nav = "".join(f'<a href="#{a}">{e(t)}</a>' for a, t in (
-        ("yield", "Yield"), ("scan", "What would it take"), *kept, ("pick-list", "Pick list"),
+        ("yield", "Yield"), ("scan", "What would it take"), ("circuit", "In the circuit"), *kept, ("pick-list", "Pick list"),
         ("distributions", "Distributions"),
         ("sets", "Sets"), ("unmatched", "Unmatched parts"), ("models", "SPICE models"),
         ("provenance", "Provenance"), ("cautions", "Cautions")))
