@@ -170,9 +170,7 @@ def _cmd_circuit(args) -> None:
     from kinset.circuit.run import run_circuit, summary_line
     result = run_circuit(args.results, args.application, args.output, args.threads,
                          args.models, progress=_progress)
-    if result.note:
-        print(f"kinset circuit: {result.note}", file=sys.stderr)
-    print(summary_line(result), file=sys.stderr)
+    print(summary_line(result), file=sys.stderr)      # with the note (no ngspice, no circuit)
 
 
 def _circuit_parser(sub) -> None:

@@ -34,6 +34,8 @@ from kinset.io.output import read_result, write_csv, write_text
 #: Circuits per deck. Measured on the ring mixer (one 2 µs transient, ngspice 39, a
 #: shared 2-core machine): 10 per deck 42 ms a circuit, 25: 21 ms, 50: 23 ms, 100: 30 ms,
 #: 200: 28 ms, 400: 48 ms. Below ~25 the process start dominates, above ~200 the matrix.
+#: With two threads (benchmarks/circuit.py --sets 300, 600 circuits): chunk 25 27.5 s,
+#: 50 16.4 s, 100 19.4 s, 200 28.4 s.
 CHUNK = 50
 
 INSTALL_NOTE = ("ngspice is not on PATH, so no set was simulated: install it (Debian/Ubuntu: "
@@ -265,5 +267,5 @@ def summary_line(result: CircuitResult) -> str:
         unit = figure_unit(first)
         text += (f"; median {figure_label(module, first)} {np.nanmedian(t[first]):.3g} {unit} "
                  f"(ideally matched: {np.nanmedian(t['reference_' + first]):.3g} {unit})")
-    missed = int((t["limits"].fillna("") != "").sum()) if len(t) else 0
+    missed = int((t["limits"].notna() & (t["limits"].astype(str) != "")).sum()) if len(t) else 0
     return text + f"; {missed} sets miss a limit" + (f"; {result.note}" if result.note else "")

@@ -138,25 +138,29 @@ def circuit_section(inp, table_html) -> str:
         return head + intro + f"<p>{e(note)}.</p></section>"
     first = next(iter(module.FIGURES))
     done = table[first].notna()
-    notes = sorted(set(table.loc[~done, "note"].fillna("").astype(str)) - {""})
+    notes = sorted(set(table.loc[~done, "note"].map(_text)) - {""})
     body = intro + (f"<p class=\"muted\">{int((~done).sum())} sets not simulated: "
                     f"{e('; '.join(notes))}</p>" if (~done).any() else "")
-    if done.any():
-        limit = next((b for f, s, b in spec.limit_pairs() if f == first), None)
-        fig = histogram_figure(table[first].to_numpy(dtype=float),
-                               float(np.nanmedian(table[f"reference_{first}"])), limit,
-                               figure_label(module, first), figure_unit(first), "fig-circuit")
-        ref = float(np.nanmedian(table[f"reference_{first}"]))
-        body += (f"<figure>{fig}<figcaption>{e(figure_label(module, first))} over the "
-                 f"{int(done.sum())} simulated sets; ideally matched sets give "
-                 f"{ref:.4g} {e(figure_unit(first))} (median)"
-                 + (f"; limit {limit:g} {e(figure_unit(first))}" if limit is not None else "")
-                 + ".</figcaption></figure>")
-        body += table_html(["figure", "unit", "median", "10th percentile", "90th percentile",
-                            "worst", "ideally matched (median)", "limit"],
-                           _stats_rows(table, module, spec), {2, 3, 4, 5, 6}, "circuit-figures")
-    missed = table[table["limits"].fillna("") != ""]
-    body += (f"<h3>Sets that miss a limit: {len(missed)}</h3>" if spec.limits else
+    if not done.any():
+        return head + body + "</section>"
+    limit = next((b for f, s, b in spec.limit_pairs() if f == first), None)
+    fig = histogram_figure(table[first].to_numpy(dtype=float),
+                           float(np.nanmedian(table[f"reference_{first}"])), limit,
+                           figure_label(module, first), figure_unit(first), "fig-circuit")
+    ref = float(np.nanmedian(table[f"reference_{first}"]))
+    body += (f"<figure>{fig}<figcaption>{e(figure_label(module, first))} over the "
+             f"{int(done.sum())} simulated sets; ideally matched sets give "
+             f"{ref:.4g} {e(figure_unit(first))} (median)"
+             + (f"; limit {limit:g} {e(figure_unit(first))}" if limit is not None else "")
+             + ".</figcaption></figure>")
+    body += table_html(["figure", "unit", "median", "10th percentile", "90th percentile",
+                        "worst", "ideally matched (median)", "limit"],
+                       _stats_rows(table, module, spec), {2, 3, 4, 5, 6}, "circuit-figures")
+    missed = table[table["limits"].map(_text) != ""]
+    listed = ", ".join(f'<a href="#set-{e(x)}">{e(x)}</a>' for x in missed["set"])
+    body += (f"<h3>Sets that miss a limit: {len(missed)}</h3>"
+             + (f"<p>Sets {listed} (what each misses: <code>circuit_limits</code> in sets.csv, "
+                "and the table below).</p>" if len(missed) else "") if spec.limits else
              "<p class=\"muted\">The profile states no limit on these figures.</p>")
     body += (f"<h3>Sets ranked by {e(figure_label(module, first))}, worst first</h3>"
              + table_html(["rank", "set", *[f"{e(figure_label(module, f))} [{e(figure_unit(f))}]"
