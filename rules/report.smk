@@ -10,6 +10,7 @@ rule report:
         values=f"{OUT}/{{application}}/values.csv",
         summary=f"{OUT}/{{application}}/summary.json",
         scan=f"{OUT}/{{application}}/tolerance_scan.csv",
+        circuit=f"{OUT}/{{application}}/circuit.csv",
         devices=f"{OUT}/devices.csv",
         reel=f"{OUT}/reel.json",
         tables=PLAN.tables(),

@@ -126,6 +126,13 @@ def test_two_reels_run_into_their_own_results_and_rerun_nothing(reels, tmp_path)
             for f in ("sets.csv", "unmatched.csv", "values.csv", "summary.json",
                       "report.html", "models.lib", "pick_list.csv"):
                 assert (out / app / f).stat().st_size > 0, (reel_id, app, f)
+            # the circuit step: one row per set when the profile names a circuit (the
+            # shipped ring mixer does), a note and no rows when it does not
+            circuit = pd.read_csv(out / app / "circuit.csv", comment="#")
+            sets = pd.read_csv(out / app / "sets.csv")["set"].unique()
+            has_circuit = "\ncircuit:" in (ROOT / "src" / "kinset" / "applications" /
+                                           f"{app}.yaml").read_text(encoding="utf-8")
+            assert sorted(circuit["set"]) == (sorted(sets) if has_circuit else []), app
     # a no-op rerun: Snakemake plans nothing
     assert planned(tmp_path, reel=f"{a},{b}") == set()
     # new data in one reel reruns that reel's jobs only

@@ -166,6 +166,27 @@ def _cmd_report(args) -> None:
           f"{r.folder / 'report.html'} ({r.page_bytes} bytes)", file=sys.stderr)
 
 
+def _cmd_circuit(args) -> None:
+    from kinset.circuit.run import run_circuit, summary_line
+    result = run_circuit(args.results, args.application, args.output, args.threads,
+                         args.models, progress=_progress)
+    print(summary_line(result), file=sys.stderr)      # with the note (no ngspice, no circuit)
+
+
+def _circuit_parser(sub) -> None:
+    """kinset circuit: every set simulated in its application's reference circuit."""
+    c = sub.add_parser("circuit", help="simulate every set in its application's reference "
+                       "circuit (ngspice); writes circuit.csv")
+    c.add_argument("--results", required=True, help="folder holding the extraction tables")
+    c.add_argument("--application", required=True, help="shipped profile name or YAML path")
+    c.add_argument("-o", "--output", help="folder of the application's sets.csv "
+                   "(default: RESULTS/<application>); circuit.csv is written there")
+    c.add_argument("--threads", type=int, default=1, help="simulator runs at once (default 1)")
+    c.add_argument("--models", help="a models.lib to take the cards from (default: made from "
+                   "the extraction tables as the report makes models.lib)")
+    c.set_defaults(func=_cmd_circuit)
+
+
 def _cmd_demo(args) -> None:
     from kinset.demo import write_demo
     try:
@@ -303,6 +324,7 @@ def build_parser() -> argparse.ArgumentParser:
                    "summary.json (default: the output folder)")
     o.set_defaults(func=_cmd_report)
 
+    _circuit_parser(sub)
     _demo_parser(sub)
     return p
 

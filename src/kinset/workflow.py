@@ -116,7 +116,7 @@ class Plan:
         out.append(str(self.out / "reel.json"))
         for name in self.applications:
             out += [str(self.out / name / f) for f in ("sets.csv", "unmatched.csv", "values.csv",
-                                                   "summary.json")]
+                                                   "summary.json", "circuit.csv")]
             out += [str(self.out / name / f) for f in REPORT_OUTPUTS]
         return out
 
@@ -173,9 +173,17 @@ class Plan:
             if any(p.stat().st_mtime > path.stat().st_mtime for p in upstream):
                 line += " (out of date: from an earlier run)"
             lines.append(line)
+            lines += self.circuit_line(name)
         if not lines:
             return []
         return [f"kinset: {self.out}/ (each application's report.html is in its folder):"] + lines
+
+    def circuit_line(self, name: str) -> list[str]:
+        """The application's circuit step in one line (:mod:`kinset.circuit.run`), if any."""
+        from kinset.circuit.run import summary_line, written
+        profile = self.profiles.get(name)
+        result = written(self.out / name / "circuit.csv", getattr(profile, "circuit", None))
+        return [f"    {summary_line(result)}"] if result is not None else []
 
     @property
     def ledger(self) -> str:

@@ -78,6 +78,8 @@ class Profile:
     waive_screens: tuple[str, ...] = ()
     # reel.yaml materials the profile is made for (key materials; empty: any)
     materials: tuple[str, ...] = ()
+    # the reference circuit every set is simulated in (key circuit; None: none)
+    circuit: "CircuitSpec | None" = None
 
     @classmethod
     def from_settings(cls, name: str, path: Path, settings: dict) -> "Profile":
@@ -284,7 +286,57 @@ def load_profile(name_or_path: str, base: Path | None = None) -> Profile:
                                           limits.get("max"), q.unit))
     check_waiver(profile, profile.waive_screens, (path, lines.get(("waive_screens",)),
                                                   "waive_screens"))
+    if "circuit" in settings:
+        profile.circuit = circuit_spec(settings["circuit"], profile.set_size, path, lines)
     return profile
+
+
+@dataclass(frozen=True)
+class CircuitSpec:
+    """A profile's reference circuit: its kind, its drive and load (the kind's defaults
+    overlaid by the profile's keys), limits on its figures and the stated expectation."""
+
+    kind: str
+    params: dict
+    limits: dict          # min_<figure> / max_<figure> -> number
+    expect: str = ""      # the profile's own words on what a good set gives
+
+    def limit_pairs(self) -> list[tuple[str, str, float]]:
+        """(figure, "min" or "max", bound) of every limit."""
+        return [(key[4:], key[:3], float(v)) for key, v in self.limits.items()]
+
+
+def circuit_spec(entry: dict, set_size: int, path: Path, lines: dict) -> CircuitSpec:
+    """The typed ``circuit:`` section; an InputError naming the key, file and line for a key
+    the kind does not take, a limit on a figure it does not compute, or a set size that is
+    not its number of positions."""
+    from kinset.circuit.kinds import kind_module
+    kind = entry["kind"]
+    try:
+        module = kind_module(kind)
+    except ImportError:
+        raise InputError(f"circuit kind {kind} is not in this version of kinset", path,
+                         lines.get(("circuit", "kind")), "circuit.kind") from None
+    line = lambda *key: lines.get(("circuit", *key)) or lines.get(("circuit",))  # noqa: E731
+    if set_size != module.POSITIONS:
+        raise InputError(f"circuit kind {kind} takes {module.POSITIONS} diodes but set_size is "
+                         f"{set_size}", path, line("kind"), "circuit.kind")
+    params = {k: v[0] for k, v in module.PARAMETERS.items()}
+    for key, value in entry.items():
+        if key in ("kind", "limits", "expect"):
+            continue
+        if key not in module.PARAMETERS:
+            raise InputError(f"circuit: unknown key '{key}' for kind {kind} (its keys: "
+                             f"{', '.join(module.PARAMETERS)})", path, line(key), f"circuit.{key}")
+        params[key] = float(value)
+    limits = dict(entry.get("limits") or {})
+    allowed = [f"{b}_{f}" for f in module.FIGURES for b in ("min", "max")]
+    for key in limits:
+        if key not in allowed:
+            raise InputError(f"circuit.limits: unknown limit '{key}' for kind {kind} (min_ or "
+                             f"max_ of a figure: {', '.join(allowed)})", path,
+                             line("limits", key), f"circuit.limits.{key}")
+    return CircuitSpec(kind, params, limits, str(entry.get("expect") or ""))
 
 
 def check_waiver(profile: Profile, quantities, where, only_screened: bool = False) -> None:

@@ -25,6 +25,7 @@ from kinset.quantities import QUANTITIES
 from kinset.registry import BY_NAME, NAMES
 from kinset.si import ZERO_CELSIUS
 from kinset.report import plots
+from kinset.report.circuit import circuit_section
 from kinset.report.inputs import ReportInputs, rows_by_device
 from kinset.report.picklist import position_text
 
@@ -167,7 +168,7 @@ def _header(inp: ReportInputs, picks: pd.DataFrame) -> str:
     desc = p.description
     kept = [("kept", "Kept sets")] if s.get("kept_sets") else []
     nav = "".join(f'<a href="#{a}">{e(t)}</a>' for a, t in (
-        ("yield", "Yield"), ("scan", "What would it take"), *kept, ("pick-list", "Pick list"),
+        ("yield", "Yield"), ("scan", "What would it take"), ("circuit", "In the circuit"), *kept, ("pick-list", "Pick list"),
         ("distributions", "Distributions"),
         ("sets", "Sets"), ("unmatched", "Unmatched parts"), ("models", "SPICE models"),
         ("provenance", "Provenance"), ("cautions", "Cautions")))
@@ -719,6 +720,7 @@ def render_page(inp: ReportInputs, names: dict[str, str], picks: pd.DataFrame, l
         _header(inp, picks),
         _yield_section(inp),          # the verdict first: how many, why the rest not,
         _scan_section(inp),           # and what would it take
+        circuit_section(inp, _table),  # the sets in their reference circuit
         _kept_section(inp),
         _pick_section(picks, cells),
         _distributions_section(inp),
