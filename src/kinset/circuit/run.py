@@ -27,7 +27,7 @@ import pandas as pd
 from kinset import __version__
 from kinset.circuit.kinds import Circuit, kind_module
 from kinset.circuit.ngspice import NgspiceError, find_ngspice, run_deck
-from kinset.circuit.words import figure_label, figure_unit
+from kinset.circuit.words import figure_label, figure_unit, figure_value
 from kinset.errors import InputError
 from kinset.io.output import read_result, write_csv, write_text
 
@@ -264,8 +264,8 @@ def summary_line(result: CircuitResult) -> str:
     text = f"circuit ({result.kind}): {done} of {len(t)} sets simulated"
     if done:
         module = kind_module(result.kind)
-        unit = figure_unit(first)
-        text += (f"; median {figure_label(module, first)} {np.nanmedian(t[first]):.3g} {unit} "
-                 f"(ideally matched: {np.nanmedian(t['reference_' + first]):.3g} {unit})")
+        text += (f"; median {figure_label(module, first)} "
+                 f"{figure_value(np.nanmedian(t[first]), first)} (ideally matched: "
+                 f"{figure_value(np.nanmedian(t['reference_' + first]), first)})")
     missed = int((t["limits"].notna() & (t["limits"].astype(str) != "")).sum()) if len(t) else 0
     return text + f"; {missed} sets miss a limit" + (f"; {result.note}" if result.note else "")

@@ -15,9 +15,10 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from kinset.circuit.kinds import kind_module
-from kinset.circuit.words import figure_label, figure_unit
+from kinset.circuit.words import PLAIN_UNITS, figure_label, figure_unit, figure_value
 from kinset.errors import InputError
 from kinset.report import plots
+from kinset.si import display_prefix
 
 # How a kind may say which way a figure is better (optional ``BETTER`` in its module):
 # "higher", "lower", or by default "smaller_magnitude" (offsets, differences).
@@ -55,6 +56,12 @@ def histogram_figure(values: np.ndarray, reference: float, limit: float | None, 
     fig.subplots_adjust(left=0.09, right=0.98, bottom=0.24, top=0.95)
     ax = fig.add_subplot()
     finite = values[np.isfinite(values)]
+    if unit not in PLAIN_UNITS and len(finite) and np.abs(finite).max() > 0:
+        # an SI unit is drawn with the prefix of the largest value (µV, not 1e-6 V)
+        factor, prefix = display_prefix(float(np.abs(finite).max()))
+        finite, unit = finite / factor, prefix + unit
+        reference = reference / factor
+        limit = None if limit is None else limit / factor
     ax.hist(finite, bins=min(30, max(5, len(finite) // 3)), color=plots.PLACED,
             edgecolor=plots.INK, linewidth=0.4)
     if limit is not None:
@@ -73,7 +80,8 @@ def histogram_figure(values: np.ndarray, reference: float, limit: float | None, 
 
 
 def _stats_rows(table: pd.DataFrame, module, spec) -> list[list[str]]:
-    limits = {f: f"{'≥' if s == 'min' else '≤'} {b:g}" for f, s, b in spec.limit_pairs()}
+    limits = {f: f"{'≥' if s == 'min' else '≤'} {figure_value(b, f, 4)}"
+              for f, s, b in spec.limit_pairs()}
     rows = []
     for f in module.FIGURES:
         v = table[f].to_numpy(dtype=float)
@@ -81,9 +89,9 @@ def _stats_rows(table: pd.DataFrame, module, spec) -> list[list[str]]:
         q = (np.nanpercentile(v, [50, 10, 90]) if np.isfinite(v).any() else [np.nan] * 3)
         worst = v[np.argmin(badness(np.nan_to_num(v, nan=np.inf), _better(module, f)))] \
             if np.isfinite(v).any() else np.nan
-        rows.append([e(figure_label(module, f)), e(figure_unit(f))]
-                    + [e(f"{x:.4g}") for x in (*q, worst)]
-                    + [e(f"{np.nanmedian(r):.4g}" if np.isfinite(r).any() else "–"),
+        rows.append([e(figure_label(module, f))]
+                    + [e(figure_value(x, f, 4)) for x in (*q, worst)]
+                    + [e(figure_value(np.nanmedian(r), f, 4) if np.isfinite(r).any() else "–"),
                        e(limits.get(f, ""))])
     return rows
 
@@ -106,8 +114,8 @@ def _ranked_rows(table: pd.DataFrame, module, first: str) -> list[list[str]]:
         cells = [e(rank), f'<a href="#set-{e(r["set"])}">{e(r["set"])}</a>']
         for f in module.FIGURES:
             x, ref = r[f], r[f"reference_{f}"]
-            cells.append("–" if pd.isna(x) else
-                         e(f"{x:.4g}") + f' <span class="muted">({e(f"{ref:.4g}")})</span>')
+            cells.append("–" if pd.isna(x) else e(figure_value(x, f, 4))
+                         + f' <span class="muted">({e(figure_value(ref, f, 4))})</span>')
         cells += [e(_text(r.get(k))) for k in ("reference_device", "limits", "note")]
         rows.append(cells)
     return rows
@@ -150,12 +158,12 @@ def circuit_section(inp, table_html) -> str:
     ref = float(np.nanmedian(table[f"reference_{first}"]))
     body += (f"<figure>{fig}<figcaption>{e(figure_label(module, first))} over the "
              f"{int(done.sum())} simulated sets; ideally matched sets give "
-             f"{ref:.4g} {e(figure_unit(first))} (median)"
-             + (f"; limit {limit:g} {e(figure_unit(first))}" if limit is not None else "")
+             f"{e(figure_value(ref, first, 4))} (median)"
+             + (f"; limit {e(figure_value(limit, first, 4))}" if limit is not None else "")
              + ".</figcaption></figure>")
-    body += table_html(["figure", "unit", "median", "10th percentile", "90th percentile",
+    body += table_html(["figure", "median", "10th percentile", "90th percentile",
                         "worst", "ideally matched (median)", "limit"],
-                       _stats_rows(table, module, spec), {2, 3, 4, 5, 6}, "circuit-figures")
+                       _stats_rows(table, module, spec), {1, 2, 3, 4, 5}, "circuit-figures")
     missed = table[table["limits"].map(_text) != ""]
     listed = ", ".join(f'<a href="#set-{e(x)}">{e(x)}</a>' for x in missed["set"])
     body += (f"<h3>Sets that miss a limit: {len(missed)}</h3>"
@@ -163,8 +171,8 @@ def circuit_section(inp, table_html) -> str:
                 "and the table below).</p>" if len(missed) else "") if spec.limits else
              "<p class=\"muted\">The profile states no limit on these figures.</p>")
     body += (f"<h3>Sets ranked by {e(figure_label(module, first))}, worst first</h3>"
-             + table_html(["rank", "set", *[f"{e(figure_label(module, f))} [{e(figure_unit(f))}]"
-                                            for f in module.FIGURES], "median part",
+             + table_html(["rank", "set", *[e(figure_label(module, f)) for f in module.FIGURES],
+                           "median part",
                            "limits missed", "note"],
                           _ranked_rows(table, module, first), {0}, "circuit-ranked"))
     return head + body + "</section>"

@@ -44,6 +44,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy.integrate import trapezoid  # numpy.trapezoid needs numpy 2; pyproject allows 1.26
 
 from kinset.circuit.kinds import Circuit
 
@@ -165,7 +166,7 @@ def phasors(time: np.ndarray, values: np.ndarray, freqs, start: float,
     out = []
     for f in freqs:
         kernel = np.exp(-2j * np.pi * f * (tt - start)) * (1.0 if f == 0 else 2.0)
-        out.append(np.trapezoid(vv * kernel[:, None], tt, axis=0) / window)
+        out.append(trapezoid(vv * kernel[:, None], tt, axis=0) / window)
     return np.array(out)
 
 
