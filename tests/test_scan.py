@@ -17,7 +17,8 @@ import pytest
 
 from kinset.matching.run import candidates, match, write_match
 from kinset.matching.scan import (SCALES, binding_criterion, candidate_greedy, count_sets,
-                                  full_count, greedy_count, scaled_points, tolerance_scan)
+                                  full_count, greedy_count, more_pairs_than, scaled_points,
+                                  tolerance_scan)
 from test_match import profile, tight_batch
 
 
@@ -139,3 +140,16 @@ def test_match_writes_tolerance_scan_and_binding_criterion(reel200, tmp_path):
     summary = json.loads((tmp_path / "out" / "summary.json").read_text())
     assert summary["binding_criterion"] == binding_criterion(scan)["criterion"]
     assert summary["binding_criterion"] in set(scan["criterion"])
+
+
+def test_more_pairs_than_agrees_with_a_brute_force_pair_count():
+    """The early-stopping pair count (it spares the scan listing the pairs of a dense
+    reel) against scipy's pdist: Chebyshev distances of every pair, counted within 1."""
+    from scipy.spatial.distance import pdist
+    rng = np.random.default_rng(3)
+    for n, d in ((400, 3), (900, 6), (60, 1)):
+        z = rng.normal(size=(n, d)) * 1.5
+        m = int((pdist(z, "chebyshev") <= 1.0).sum())
+        assert m > 0
+        for chunk in (7, 500):
+            assert [more_pairs_than(z, c, chunk) for c in (m - 1, m, m + 1)] == [True, False, False]

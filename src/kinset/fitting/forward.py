@@ -21,7 +21,6 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from scipy.stats import t as student_t
 
 from kinset.fitting.batch import (ByDevice, Groups, correlations, group_summer,
                                   grouped_normal_equations, inverse_diagonal, inverse_stack,
@@ -389,6 +388,9 @@ class _Identified:
 def _half_widths(r: _Readings, se, rms, fixed) -> tuple[np.ndarray, np.ndarray]:
     """95 % half-widths (Student t with the fit's dof; infinite without dof) of the
     parameters (ln IS0, N, RS), and the residual standard deviation [V]."""
+    # scipy.stats here, not at the top: every step that imports this module (parse, the
+    # other extractions, the report) would pay ~0.4 s for it
+    from scipy.stats import t as student_t
     m = r.groups.count(r.used).astype(float)
     dof = m - 3 + fixed
     with np.errstate(invalid="ignore", divide="ignore"):
