@@ -18,7 +18,8 @@ import pytest
 from scipy import constants, stats
 
 from kinset.circuit.kinds import Circuit, ring_mixer
-from kinset.circuit.run import INSTALL_NOTE, median_part
+from kinset.circuit.run import INSTALL_NOTE, median_part, plan
+from kinset.circuit.kinds import sampling_bridge
 from kinset.cli import main
 from kinset.demo import write_demo
 from kinset.errors import InputError
@@ -198,10 +199,28 @@ def test_a_missed_limit_is_flagged_in_circuit_csv_sets_csv_and_the_report(matche
     assert main(["circuit", "--results", str(results), "--application", str(profile),
                  "-o", str(out)]) == 0
     table = pd.read_csv(out / "circuit.csv")
-    assert table["limits"].str.contains("LO-to-IF isolation .* below the minimum 200 dB").all()
+    assert table["limits"].str.contains(r"LO-to-IF isolation .* below the minimum 200\.0 dB").all()
     sets = pd.read_csv(out / "sets.csv")
-    assert (sets["circuit_limits"].str.contains("below the minimum 200 dB")).all()
+    assert (sets["circuit_limits"].str.contains(r"below the minimum 200\.0 dB")).all()
     assert main(["report", "--results", str(results), "--application", str(profile),
                  "-o", str(out)]) == 0
     page = (out / "report.html").read_text(encoding="utf-8")
     assert f"Sets that miss a limit: {len(table)}</h3>" in page
+
+
+def test_a_card_without_what_the_circuit_needs_gives_a_note_not_a_figure():
+    """A sampling bridge's pedestal is mostly its diodes' stored charge (TT, from the
+    recovery fit; Millman and Taub on sampling gates): a set with a card that has no TT
+    gets a note naming part and parameter and is not simulated, rather than a pedestal
+    made of the simulator's default TT = 0. A set whose cards all have it is simulated."""
+    full = {"IS": 2e-9, "N": 1.9, "RS": 0.8, "CJO": 1.8e-12, "VJ": 0.6, "M": 0.35, "TT": 6e-9}
+    bare = {k: v for k, v in full.items() if k != "TT"}
+    sets = pd.DataFrame({"set": [1] * 4 + [2] * 4, "position": range(1, 9),
+                         "device": ["A1", "A2", "A3", "A4", "B1", "B2", "B3", "B4"]})
+    values = pd.DataFrame({"v": [0.30, 0.301, 0.302, 0.303] * 2}, index=sets["device"])
+    dim = Dimension("v", "forward_voltage", 1e-3, 3e-3, False, 1.0, "V")
+    cards = {d.lower(): card(d, bare if d == "A3" else full) for d in sets["device"]}
+    rows, circuits = plan(sets, values, [dim], cards, {}, sampling_bridge.NEEDS)
+    assert "the card of A3 has no TT" in rows[0]["note"]
+    assert rows[1]["note"] == ""
+    assert [c.label for c in circuits] == ["s2", "r2"]

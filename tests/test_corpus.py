@@ -97,14 +97,20 @@ def put(rel: str, data: str | bytes) -> Callable[[Path], None]:
 def edit(rel: str, change: Callable[[str], str]) -> Callable[[Path], None]:
     def go(reel: Path) -> None:
         p = reel / rel
-        p.write_text(change(p.read_text(encoding="utf-8")), encoding="utf-8")
+        before = p.read_text(encoding="utf-8")
+        after = change(before)
+        assert after != before, f"the case's edit no longer changes {rel}: fix the case"
+        p.write_text(after, encoding="utf-8")
     return go
 
 
 def edit_bytes(rel: str, change: Callable[[bytes], bytes]) -> Callable[[Path], None]:
     def go(reel: Path) -> None:
         p = reel / rel
-        p.write_bytes(change(p.read_bytes()))
+        before = p.read_bytes()
+        after = change(before)
+        assert after != before, f"the case's edit no longer changes {rel}: fix the case"
+        p.write_bytes(after)
     return go
 
 
@@ -471,7 +477,7 @@ CASES = [
          edit("reel.yaml", lambda t: t.replace("breakdown_current_A", "breakdown_curent_A")),
          Error("reel.yaml", 23, "leakage.breakdown_curent_A", "unknown key 'breakdown_curent_A'")),
     Case("reel_duplicate_key", "reel", edit("reel.yaml", lambda t: t + "material: germanium\n"),
-         Error("reel.yaml", 26, "material", "appears twice in one mapping (first on line 6)")),
+         Error("reel.yaml", 28, "material", "appears twice in one mapping (first on line 6)")),
     Case("reel_tab_indentation", "reel",
          edit("reel.yaml", lambda t: t.replace("  voltage: {", "\tvoltage: {")),
          Error("reel.yaml", 13, None, "found character '\\t'")),
@@ -487,11 +493,11 @@ CASES = [
          Accepted()),
     # A misspelt application is caught when the reel is read, with the nearest name.
     Case("reel_application_typo", "reel",
-         edit("reel.yaml", lambda t: t.replace("audio_clipper_pair]", "audio_cliper_pair]")),
-         Error("reel.yaml", 25, "applications.1", "did you mean 'audio_clipper_pair'?")),
+         edit("reel.yaml", lambda t: t.replace("ring_mixer_quad]", "ring_mixr_quad]")),
+         Error("reel.yaml", 27, "applications.1", "did you mean 'ring_mixer_quad'?")),
     Case("reel_application_file_missing", "reel",
-         edit("reel.yaml", lambda t: t.replace("audio_clipper_pair]", "profiles/mine.yaml]")),
-         Error("reel.yaml", 25, "applications.1", "'profiles/mine.yaml' not found in the reel folder")),
+         edit("reel.yaml", lambda t: t.replace("ring_mixer_quad]", "profiles/mine.yaml]")),
+         Error("reel.yaml", 27, "applications.1", "'profiles/mine.yaml' not found in the reel folder")),
     # ---------------------------------------------------------------- application profiles
     Case("profile_unknown_quantity", "profile", put(PROFILE, PROFILE_OK.replace("forward_voltage", "forward_volts")),
          Error(PROFILE, 4, "match.0.quantity", "forward_volts")),

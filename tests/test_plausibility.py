@@ -157,8 +157,9 @@ def test_check_reel_prints_the_profile_warning(demo, tmp_path, capsys):  # noqa:
                                 "tolerance_V: 1")
     yaml = reel / "reel.yaml"
     yaml.write_text(yaml.read_text(encoding="utf-8").replace(
-        "applications: [ring_mixer_quad, audio_clipper_pair]",
+        "applications: [audio_clipper_pair, ring_mixer_quad]",
         "applications: [profiles/mine.yaml]"), encoding="utf-8")
+    assert "applications: [profiles/mine.yaml]" in yaml.read_text(encoding="utf-8")
     assert main(["check-reel", "--reel", str(reel)]) == 0
     err = capsys.readouterr().err
     assert "mine.yaml: warning: tolerance_V: 1" in err and "did you mean 1 mV" in err

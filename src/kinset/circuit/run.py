@@ -27,7 +27,7 @@ import pandas as pd
 from kinset import __version__
 from kinset.circuit.kinds import Circuit, kind_module
 from kinset.circuit.ngspice import NgspiceError, find_ngspice, run_deck
-from kinset.circuit.words import figure_label, figure_unit, figure_value
+from kinset.circuit.words import figure_label, figure_value
 from kinset.errors import InputError
 from kinset.io.output import read_result, write_csv, write_text
 
@@ -97,11 +97,19 @@ def read_cards(text: str) -> tuple[dict[str, str], dict[str, str]]:
     return {k: "\n".join(v) for k, v in cards.items()}, why
 
 
+def lacking(card: str, needs: dict[str, str]) -> list[str]:
+    """The parameters of ``needs`` (names) that ``card`` does not set."""
+    given = {k.upper() for k in re.findall(r"([A-Za-z]\w*)\s*=", card)}
+    return [k for k in needs if k.upper() not in given]
+
+
 def plan(sets: pd.DataFrame, values: pd.DataFrame, dimensions, cards: dict[str, str],
-         why: dict[str, str]) -> tuple[list[dict], list[Circuit]]:
+         why: dict[str, str], needs: dict[str, str] | None = None,
+         ) -> tuple[list[dict], list[Circuit]]:
     """One row per set (``set``, ``reference_device``, ``note``) and the circuits to run
     (the set's as ``s<set>``, its reference as ``r<set>``); a set with a member without a
-    card gets a note and no circuit."""
+    card, or whose card lacks a parameter the circuit ``needs`` (the kind's ``NEEDS``),
+    gets a note and no circuit."""
     from kinset.report.spice import model_names
     names = model_names(sets["device"].astype(str))
     rows, circuits = [], []
@@ -115,6 +123,11 @@ def plan(sets: pd.DataFrame, values: pd.DataFrame, dimensions, cards: dict[str, 
         if missing:
             row["note"] = "; ".join(f"no card for {d}: {why.get(names[d].lower(), 'not in the models')}"
                                     for d in missing)
+            continue
+        short = {d: lacking(cards[names[d].lower()], needs or {}) for d in members}
+        if any(short.values()):
+            row["note"] = "; ".join(f"the card of {d} has no {k}: {(needs or {})[k]}"
+                                    for d, ks in short.items() for k in ks)
             continue
         circuits.append(Circuit(f"s{s}", tuple(names[d] for d in members)))
         circuits.append(Circuit(f"r{s}", (names[ref],) * len(members)))
@@ -158,9 +171,9 @@ def missed_limits(spec, module, row: dict) -> str:
     for figure, side, bound in spec.limit_pairs():
         v = row.get(figure, math.nan)
         if isinstance(v, float) and math.isfinite(v) and (v < bound if side == "min" else v > bound):
-            out.append(f"{figure_label(module, figure)} {v:.3g} {figure_unit(figure)} "
+            out.append(f"{figure_label(module, figure)} {figure_value(v, figure)} "
                        f"{'below the minimum' if side == 'min' else 'above the maximum'} "
-                       f"{bound:g} {figure_unit(figure)}")
+                       f"{figure_value(bound, figure)}")
     return "; ".join(out)
 
 
@@ -225,7 +238,8 @@ def run_circuit(results: str | Path, application: str, out: str | Path | None = 
     module = kind_module(spec.kind)
     inputs = load_inputs(results, application, folder)
     cards, why = load_cards(inputs, models)
-    rows, circuits = plan(inputs.sets, inputs.values, profile.dimensions, cards, why)
+    rows, circuits = plan(inputs.sets, inputs.values, profile.dimensions, cards, why,
+                          getattr(module, "NEEDS", {}))
     note = ""
     if find_ngspice() is None:
         note, circuits = INSTALL_NOTE, []

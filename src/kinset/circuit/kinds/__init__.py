@@ -19,6 +19,13 @@ Each kind module holds, and nothing else is needed to add a kind:
     ``.model`` lines the circuits name; ``temperature_C`` the profile's
     ``operating_temperature_C`` (the deck sets ``.options tnom=... temp=...``
     explicitly: the cards' parameters are at the reel's reference temperature).
+``NEEDS: dict[str, str]`` (optional)
+    Card parameters without which a figure would be made up (the simulator's default
+    stands in for what was not measured), each with the reason; a set with a card that
+    lacks one gets a note in ``circuit.csv`` and no figures.
+``BETTER: dict[str, str]`` (optional)
+    Which way each figure is better (``higher``, ``lower``, ``smaller_magnitude``); the
+    report ranks sets by it.
 ``figures(result, circuits, params) -> list[dict[str, float]]``
     From :class:`kinset.circuit.ngspice.RunResult` of that deck, one dict of
     ``FIGURES`` values per circuit, in the order of ``circuits`` (NaN where the

@@ -70,6 +70,11 @@ FIGURES = {
                          "the strobe): the pedestal less what turn-off injects",
 }
 
+#: Without TT the stored charge, which sets most of the pedestal, is the simulator's zero
+#: (see above); without CJO, VJ and M the charge the junctions inject at turn-off is.
+NEEDS = {"TT": "the stored charge sets most of the pedestal (no recovery data was fitted)",
+         "CJO": "the junction charge injected at turn-off (no capacitance data was fitted)"}
+
 DELAY_S_PER_EDGE = 5.0    # the strobe starts after this many edge times (off at t = 0)
 
 

@@ -42,6 +42,11 @@ PARAMETERS = {
     "tuning_points": (4.0, "1, 2, 4, 8 V: the biases the profile matches capacitance at"),
 }
 
+#: The tank is tuned by the depletion law alone: without its three parameters the
+#: simulator's defaults (no capacitance, VJ 1 V, M 0.5) would tune it.
+NEEDS = {"CJO": "the tuning capacitance (no C-V fit)", "VJ": "the C-V law's built-in "
+         "potential (no C-V fit)", "M": "the C-V law's grading exponent (no C-V fit)"}
+
 FIGURES = {
     "tracking_error_ppm": "largest relative difference of the two tanks' resonant "
                           "frequencies over the tuning range (of their mean)",
