@@ -546,7 +546,7 @@ def _sets_section(inp: ReportInputs, cells: dict[str, str]) -> str:
     set_ids = sorted(sets["set"].unique())
     drawn = set(set_ids[:MAX_DRAWN_SETS])
     wanted = set(sets.loc[sets["set"].isin(drawn), "device"])
-    rows = {k: rows_by_device(inp.table(k)) for k in NAMES}
+    rows = {k: rows_by_device(inp.table(k), wanted) for k in NAMES}
     readings = _groups(inp.table("forward_readings"), wanted)
     cv = _groups(inp.table("capacitance_points"), wanted)
     parts = ['<section id="sets"><h2>Sets</h2>']
