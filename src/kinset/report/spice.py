@@ -25,6 +25,7 @@ References
 from __future__ import annotations
 
 import hashlib
+import itertools
 import math
 import re
 from dataclasses import dataclass, field
@@ -260,11 +261,15 @@ def models_lib(sets: pd.DataFrame, tables: dict[str, pd.DataFrame], reel: dict,
     ]
     n_sets = order["set"].nunique()
     no_card: dict[str, str] = {}
-    for s, block in order.groupby("set", sort=True):
-        members = block["device"].astype(str).tolist()
+    # one pass over plain lists (sorted by set above): a DataFrame per set cost ~1 s at
+    # 2,500 quads
+    rows_of = zip(order["set"].tolist(), order["device"].astype(str).tolist(),
+                  order["position"].tolist())
+    for s, block in itertools.groupby(rows_of, key=lambda r: r[0]):
+        block = list(block)
         out.append(f"* ---- set {comment_text(s)} of {n_sets}: "
-                   + ", ".join(names[d] for d in members))
-        for dev, pos in zip(members, block["position"]):
+                   + ", ".join(names[d] for _s, d, _p in block))
+        for _s, dev, pos in block:
             model = device_model(dev, {k: rows[k].get(dev) for k in rows}, reel)
             out.append(f"* device {comment_text(dev)}, {_position_text(pos)}, set {comment_text(s)}")
             if model.no_card:
