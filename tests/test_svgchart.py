@@ -77,3 +77,17 @@ def test_figure_is_wellformed_svg_with_every_point():
     texts = [el.text for el in root.iter(f"{SVG}text")]
     assert "a&b" in texts and "a <note>" in texts
     assert root.get("aria-label") == 'label "q"'
+
+
+def test_histogram_view_as_matplotlib():
+    # reference: matplotlib's Axes.hist(histtype="stepfilled"): bars stand on 0 (a sticky
+    # edge, no margin below), 5 % margin above and on both sides of the bins
+    rng = np.random.default_rng(3)
+    values = rng.normal(0.6, 0.01, 500)
+    bins = np.linspace(values.min(), values.max(), 41)
+    chart = svgchart.Chart((50.0, 20.0, 150.0, 110.0))
+    chart.hist(values, bins)
+    ref, xlim, ylim, _xt, _yt = _matplotlib_axes(
+        chart, lambda ax: ax.hist(values, bins=bins, histtype="stepfilled"))
+    assert np.allclose(chart.x.view(), xlim, rtol=1e-9)
+    assert np.allclose(chart.y.view(), ylim, rtol=1e-9) and chart.y.view()[0] == 0.0

@@ -219,55 +219,59 @@ class Panel:
     limits: list[tuple[str, float]] = field(default_factory=list)   # ("max", value)
 
 
-@styled
 def distributions_figure(panels: list[Panel], key: str, columns: int = 3) -> str:
+    """One histogram per panel, written by :mod:`kinset.report.svgchart` (a matplotlib
+    figure of ten histograms took 0.7 s of a 10,000-part report)."""
     rows = math.ceil(len(panels) / columns)
-    fig = _figure(7.2, 0.3 + 2.0 * rows)
-    axes = fig.subplots(rows, columns, squeeze=False)
+    width, height = 7.2, 0.3 + 2.0 * rows
     # room between panels for each one's "parts" label beside its neighbour's ticks
-    _margins(fig, rows, left=0.5, top=0.5, wspace=0.8, hspace=0.7)
-    for ax in axes.flat[len(panels):]:
-        ax.set_visible(False)
-    for ax, p in zip(axes.flat, panels):
-        v = np.asarray(p.values, dtype=float)
-        ok = np.isfinite(v) & ((v > 0) if p.log else True)
-        x = v[ok]
-        lims = [val for _, val in p.limits]
-        if p.log:
-            pos = [val for val in lims if val > 0]
-            lo, hi = np.log10(min([x.min()] + pos)), np.log10(max([x.max()] + pos))
-            lo, hi = (lo - 0.5, hi + 0.5) if hi - lo < 1e-9 else (lo - 0.05, hi + 0.05)
-            bins = np.logspace(lo, hi, 41)
-            ax.set_xscale("log")
-            _log_axis(ax.xaxis, p.unit, 5)
-            factor, unit = 1.0, p.unit
-        else:
-            factor, unit = _prefix(x, p.unit)
-            lo, hi = min([x.min()] + lims), max([x.max()] + lims)
-            span = hi - lo if hi > lo else max(abs(hi), 1e-30) * 0.01
-            bins = np.linspace(lo - 0.02 * span, hi + 0.02 * span, 41) / factor
-        xs = x if p.log else x / factor
-        ax.hist(xs, bins=bins, color=ALL_PARTS, histtype="stepfilled")
-        placed = p.placed[ok]
-        if placed.any():
-            ax.hist(xs[placed], bins=bins, color=PLACED, histtype="stepfilled")
-        for _kind, val in p.limits:
-            ax.axvline(val if p.log else val / factor, color=LIMIT, linewidth=1.2,
-                       linestyle="--")
-        dmg = p.damaged[ok]
-        if dmg.any():
-            ax.plot(xs[dmg], np.zeros(int(dmg.sum())), linestyle="none", marker="x",
-                    color=DAMAGED, markersize=4.5, clip_on=False)
-        ax.set_title(f"{p.title} ({len(x)} parts)", loc="left")
-        ax.set_xlabel(unit or "[1]")
-        ax.set_ylabel("parts")
-        ax.yaxis.set_major_locator(MaxNLocator(integer=True))
-    handles = [Patch(color=ALL_PARTS, label="all parts"), Patch(color=PLACED, label="placed in sets"),
-               Line2D([], [], color=LIMIT, linestyle="--", label="screening limit"),
-               Line2D([], [], color=DAMAGED, marker="x", linestyle="none",
-                      label="possible damage (leakage)")]
-    fig.legend(handles=handles, loc="upper center", ncol=4, bbox_to_anchor=(0.5, 1.0))
-    return svg_text(fig, key, "distributions of the reel with screening limits")
+    axes = svgchart.grid(rows, columns, width, height, left=0.5, right=0.12, bottom=0.42,
+                         top=0.5, wspace=0.8, hspace=0.7)
+    for ax, p in zip(axes, panels):
+        _histogram_panel(ax, p)
+    legend = [(ALL_PARTS, {"patch": True}, "all parts"), (PLACED, {"patch": True}, "placed in sets"),
+              (LIMIT, {"linestyle": "--", "linewidth": 1.2}, "screening limit"),
+              (DAMAGED, {"marker": "x", "markersize": 4.5}, "possible damage (leakage)")]
+    return svgchart.figure_svg(axes[:len(panels)], width, height, key,
+                               "distributions of the reel with screening limits", legend=legend)
+
+
+def _histogram_panel(ax, p: Panel) -> None:
+    """Every part, the placed ones over them, limits dashed, damaged parts marked at 0."""
+    v = np.asarray(p.values, dtype=float)
+    ok = np.isfinite(v) & ((v > 0) if p.log else True)
+    x = v[ok]
+    lims = [val for _, val in p.limits]
+    if p.log:
+        pos = [val for val in lims if val > 0]
+        lo, hi = np.log10(min([x.min()] + pos)), np.log10(max([x.max()] + pos))
+        lo, hi = (lo - 0.5, hi + 0.5) if hi - lo < 1e-9 else (lo - 0.05, hi + 0.05)
+        bins = np.logspace(lo, hi, 41)
+        ax.set_xscale("log")
+        ax.x.numticks = 5
+        ax.set_formatter("x", _si_label(p.unit))
+        factor, unit = 1.0, p.unit
+    else:
+        factor, unit = _prefix(x, p.unit)
+        lo, hi = min([x.min()] + lims), max([x.max()] + lims)
+        span = hi - lo if hi > lo else max(abs(hi), 1e-30) * 0.01
+        bins = np.linspace(lo - 0.02 * span, hi + 0.02 * span, 41) / factor
+    xs = x if p.log else x / factor
+    ax.hist(xs, bins, color=ALL_PARTS)
+    placed = p.placed[ok]
+    if placed.any():
+        ax.hist(xs[placed], bins, color=PLACED)
+    for _kind, val in p.limits:
+        ax.axvline(val if p.log else val / factor, color=LIMIT, linewidth=1.2, linestyle="--")
+    dmg = p.damaged[ok]
+    if dmg.any():
+        ax.plot(xs[dmg], np.zeros(int(dmg.sum())), linestyle="none", marker="x",
+                color=DAMAGED, markersize=4.5, clip_on=False)
+    ax.set_title(f"{p.title} ({len(x)} parts)", loc="left")
+    ax.set_xlabel(unit or "[1]")
+    ax.set_ylabel("parts")
+    # parts are counted whole
+    ax.set_locator("y", lambda lo, hi: MaxNLocator(integer=True).tick_values(lo, hi))
 
 
 # --------------------------------------------------------------------------- one set

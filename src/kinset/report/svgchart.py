@@ -69,6 +69,9 @@ _MARKERS = {
 
 
 def _marker_path(marker: str, size: float) -> str:
+    if marker == "x":                              # two strokes, nothing to fill
+        r = size / 2
+        return f"M {_n(-r)} {_n(-r)} L {_n(r)} {_n(r)} M {_n(-r)} {_n(r)} L {_n(r)} {_n(-r)}"
     if marker == "o":
         r = size / 2
         return f"M {_n(-r)} 0 A {_n(r)} {_n(r)} 0 1 0 {_n(r)} 0 A {_n(r)} {_n(r)} 0 1 0 {_n(-r)} 0 Z"
@@ -83,6 +86,9 @@ class _Scale:
     log: bool = False
     extent: list[float] = field(default_factory=list)
     formatter: object = None
+    locator: object = None         # (lo, hi) -> ticks, instead of matplotlib's default
+    numticks: int = 6              # of a log axis (LogLocator's numticks)
+    sticky: list[float] = field(default_factory=list)   # the margin stops here (a bar's 0)
 
     def take(self, values) -> np.ndarray:
         v = np.asarray(values, dtype=float).ravel()
@@ -96,6 +102,8 @@ class _Scale:
         if not self.extent:
             return (1.0, 10.0) if self.log else (0.0, 1.0)
         lo, hi = min(self.extent), max(self.extent)
+        below = [v for v in self.sticky if v <= lo]
+        above = [v for v in self.sticky if v >= hi]
         if self.log:
             lo, hi = math.log10(lo), math.log10(hi)
         if hi - lo <= 1e-12 * max(abs(lo), abs(hi), 1e-300):
@@ -103,13 +111,18 @@ class _Scale:
             lo, hi = lo - pad, hi + pad
         span = hi - lo
         lo, hi = lo - MARGIN * span, hi + MARGIN * span
-        return (10 ** lo, 10 ** hi) if self.log else (lo, hi)
+        if self.log:
+            lo, hi = 10 ** lo, 10 ** hi
+        # as matplotlib: a margin never crosses a sticky edge the data reach
+        return (max([lo] + below), min([hi] + above))
 
     def ticks(self, lo: float, hi: float, length: float, room: float) -> np.ndarray:
         """matplotlib's choice: a label needs ``room`` times the tick font size along the
         axis (3 on x, 2 on y: ``Axis.get_tick_space``), at most 9 intervals."""
-        if self.log:
-            t = LogLocator(numticks=6).tick_values(lo, hi)
+        if self.locator is not None:
+            t = self.locator(lo, hi)
+        elif self.log:
+            t = LogLocator(numticks=self.numticks).tick_values(lo, hi)
         else:
             bins = max(1, min(9, int(length // (TICK * room))))
             t = MaxNLocator(nbins=bins, steps=[1, 2, 2.5, 5, 10]).tick_values(lo, hi)
@@ -165,6 +178,16 @@ class Chart:
         self.items.append(_Item("vline", x, None, color, dict(linewidth=linewidth,
                                                              linestyle=linestyle)))
 
+    def hist(self, values, bins, color="#000000"):
+        """A filled step outline of the counts in ``bins`` (``histtype="stepfilled"``)."""
+        bins = np.asarray(bins, dtype=float)
+        counts = np.histogram(np.asarray(values, dtype=float), bins)[0].astype(float)
+        self.x.take(bins[[0, -1]]), self.y.take([0.0, counts.max() if len(counts) else 0.0])
+        self.y.sticky.append(0.0)
+        x = np.repeat(bins, 2)
+        y = np.concatenate([[0.0], np.repeat(counts, 2), [0.0]])
+        self.items.append(_Item("fill", x, y, color))
+
     def text_center(self, text: str):
         """A line of text at the middle of the panel (``transform=ax.transAxes``)."""
         self.items.append(_Item("text", 0.5, 0.5, style=dict(text=text)))
@@ -174,6 +197,10 @@ class Chart:
 
     def set_yscale(self, scale):
         self.y.log = scale == "log"
+
+    def set_locator(self, which: str, ticks):
+        """Tick positions of axis ``which``: ``ticks(lo, hi) -> array``."""
+        getattr(self, which).locator = ticks
 
     def set_formatter(self, which: str, label):
         """Tick labels of axis ``which`` ("x" or "y"): ``label(value) -> str``."""
@@ -263,8 +290,8 @@ def _marker_use(key: str, marker: str, size: float, defs: dict) -> str:
 
 
 def marker_id(marker: str) -> str:
-    return {"o": "o", "s": "s", "^": "u", "v": "d", "<": "l", "D": "D", "P": "P", "X": "X"}.get(
-        marker, "s")
+    return {"o": "o", "s": "s", "^": "u", "v": "d", "<": "l", "D": "D", "P": "P", "X": "X",
+            "x": "x"}.get(marker, "s")
 
 
 def _plot_svg(item: _Item, px, py, key: str, defs: dict) -> list[str]:
@@ -293,7 +320,9 @@ def _items_svg(c: Chart, px, py, key: str, clip: str, defs: dict) -> list[str]:
     left, top, width, height = c.box
     out = [f'<g clip-path="url(#{clip})">']
     for item in c.items:
-        if item.kind == "plot":
+        if item.kind == "fill":
+            out.append(f'<path d="{_polyline(px(item.x), py(item.y))} Z" fill="{item.color}"/>')
+        elif item.kind == "plot" and item.style.get("clip_on", True):
             out += _plot_svg(item, px, py, key, defs)
         elif item.kind in ("hline", "vline"):
             w = item.style["linewidth"]
@@ -303,6 +332,8 @@ def _items_svg(c: Chart, px, py, key: str, clip: str, defs: dict) -> list[str]:
                        f'{_dashes(item.style["linestyle"], w)}/>')
     out.append("</g>")
     for item in c.items:
+        if item.kind == "plot" and not item.style.get("clip_on", True):
+            out += _plot_svg(item, px, py, key, defs)
         if item.kind == "text":
             out.append(f'<text x="{_n(left + width / 2)}" y="{_n(top + height / 2)}" '
                        f'text-anchor="middle" fill="{INK}" style="font-size: {_n(FONT)}px">'
@@ -325,6 +356,29 @@ def _legend_svg(c: Chart, key: str, defs: dict) -> list[str]:
         out.append(f'<text x="{_n(x0 + 2.8 * size)}" y="{_n(mid + 0.36 * size)}" '
                    f'fill="{INK}">{_esc(item.label)}</text>')
         y += 1.5 * size
+    out.append("</g>")
+    return out
+
+
+def _row_legend(entries: list[tuple[str, dict, str]], width: float, key: str,
+                defs: dict) -> list[str]:
+    """A figure's legend: one row centred at the top (``fig.legend(loc="upper center",
+    ncol=len(entries))``); entries (colour, style, label), ``style["patch"]`` a filled box."""
+    size = TICK
+    spans = [2 * size + 0.8 * size + len(label) * EM_WIDTH * size for _c, _s, label in entries]
+    x = (width - sum(spans) - 2 * size * (len(entries) - 1)) / 2
+    mid = 0.4 * size + 0.5 * size + 0.35 * size
+    out = [f'<g style="font-size: {_n(size)}px">']
+    for (color, style, label), span in zip(entries, spans):
+        if style.get("patch"):
+            out.append(f'<rect x="{_n(x)}" y="{_n(mid - 0.35 * size)}" width="{_n(2 * size)}" '
+                       f'height="{_n(0.7 * size)}" fill="{color}"/>')
+        else:
+            out += _legend_sample(_Item("plot", np.array([x, x + 2 * size]), np.array([mid, mid]),
+                                        color, dict(style)), key, defs)
+        out.append(f'<text x="{_n(x + 2.8 * size)}" y="{_n(mid + 0.36 * size)}" '
+                   f'fill="{INK}">{_esc(label)}</text>')
+        x += span + 2 * size
     out.append("</g>")
     return out
 
@@ -376,13 +430,16 @@ def grid(rows: int, cols: int, width: float, height: float, left: float, right: 
 
 
 def figure_svg(charts: list[Chart], width: float, height: float, key: str, label: str,
-               css_class: str = "plot") -> str:
-    """The charts as one ``<svg>`` element for inlining in HTML (sizes in inches)."""
+               css_class: str = "plot", legend: list | None = None) -> str:
+    """The charts as one ``<svg>`` element for inlining in HTML (sizes in inches), with
+    a figure legend (see :func:`_row_legend`) if given."""
     defs: dict[str, str] = {}
     body = []
     for i, c in enumerate(charts):
         body += render(c, key, i, defs)
     w, h = width * PT, height * PT
+    if legend:
+        body += _row_legend(legend, w, key, defs)
     head = (f'<svg class="{css_class}" role="img" aria-label="{_esc(label)}" '
             f'xmlns="http://www.w3.org/2000/svg" width="{_n(w)}pt" height="{_n(h)}pt" '
             f'viewBox="0 0 {_n(w)} {_n(h)}">')
