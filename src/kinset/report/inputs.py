@@ -75,7 +75,10 @@ def rows_by_device(table: pd.DataFrame | None, devices=None) -> dict[str, dict]:
     if devices is not None:
         keep = ids.isin(set(devices)).to_numpy()
         t, ids = t[keep], ids[keep]
-    return dict(zip(ids, t.to_dict("records")))
+    # the same dicts as to_dict("records") (Python scalars), in half the time
+    cols = list(t.columns)
+    records = (dict(zip(cols, r)) for r in zip(*(t[c].tolist() for c in cols)))
+    return dict(zip(ids, records))
 
 
 def fingerprint(path: Path, label: str) -> InputFile:
