@@ -91,3 +91,19 @@ def test_histogram_view_as_matplotlib():
         chart, lambda ax: ax.hist(values, bins=bins, histtype="stepfilled"))
     assert np.allclose(chart.x.view(), xlim, rtol=1e-9)
     assert np.allclose(chart.y.view(), ylim, rtol=1e-9) and chart.y.view()[0] == 0.0
+
+
+def test_set_figure_edge_cases_are_wellformed_svg():
+    # reference: the standard library's XML parser. A part with points but no fit (legend
+    # "points only"), two fits whose current ranges do not overlap, one panel alone.
+    i = np.logspace(-5, -2, 6)
+    readings = (i, 0.6 + 0.05 * np.log10(i / 1e-5), np.ones(6, bool), np.full(6, 298.15))
+    fit = {"is_A": 1e-9, "n": 1.9, "rs_ohm": 1.0, "reference_temperature_C": 25.0}
+    low = plots.Member("A", dict(fit, i_min_A=1e-6, i_max_A=1e-5), readings)
+    high = plots.Member("B", dict(fit, i_min_A=1e-3, i_max_A=1e-2))
+    alone = plots.Member("C", None, readings)
+    for members in ([low, high, alone], [alone]):
+        root = ET.fromstring(plots.set_figure(members, [1e-3], 298.15, "fig-e", "edge"))
+        texts = " ".join(el.text or "" for el in root.iter(f"{SVG}text"))
+        assert "C (points only)" in texts
+    assert "do not overlap" in plots.set_figure([low, high], [], 298.15, "fig-f", "f")

@@ -1,4 +1,9 @@
-"""The report's figures, drawn with matplotlib's object API and written as inline SVG.
+"""The report's figures, written as inline SVG.
+
+The many and the large ones (one per drawn set, the reel's distributions) are written
+directly by :mod:`kinset.report.svgchart`, which keeps matplotlib's look and tick choice
+at a small fraction of its cost; the yield funnel and the tolerance scan are drawn with
+matplotlib's object API, as follows.
 
 No pyplot and no global backend: each figure is a :class:`matplotlib.figure.Figure`
 drawn on the SVG canvas inside a private ``rc_context``, so a report never changes
