@@ -156,12 +156,17 @@ def compose(n: int, findings: Sequence[Finding], catalogue: Catalogue
     return status, note_col, code_col
 
 
+def cell_codes(cell) -> list[str]:
+    """The codes of one ``reason_code`` cell (empty list for a blank or missing cell):
+    for one row at a time, where a Series per call would cost more than the split."""
+    if cell is None or (not isinstance(cell, str) and pd.isna(cell)):
+        return []
+    return [c for c in str(cell).split(CODE_SEPARATOR) if c]
+
+
 def split_codes(column) -> list[list[str]]:
     """The codes of each row of a ``reason_code`` column (empty list for a blank cell)."""
-    out = []
-    for cell in pd.Series(column, dtype=object).fillna("").astype(str):
-        out.append([c for c in cell.split(CODE_SEPARATOR) if c])
-    return out
+    return [cell_codes(cell) for cell in pd.Series(column, dtype=object).fillna("").astype(str)]
 
 
 def has_code(column, *codes: str) -> np.ndarray:

@@ -10,6 +10,7 @@ data (device ids, notes, reasons, file names, the profile's YAML) is escaped.
 from __future__ import annotations
 
 import html
+import itertools
 import json
 import math
 
@@ -546,7 +547,7 @@ def _sets_section(inp: ReportInputs, cells: dict[str, str]) -> str:
     set_ids = sorted(sets["set"].unique())
     drawn = set(set_ids[:MAX_DRAWN_SETS])
     wanted = set(sets.loc[sets["set"].isin(drawn), "device"])
-    rows = {k: rows_by_device(inp.table(k)) for k in NAMES}
+    rows = {k: rows_by_device(inp.table(k), wanted) for k in NAMES}
     readings = _groups(inp.table("forward_readings"), wanted)
     cv = _groups(inp.table("capacitance_points"), wanted)
     parts = ['<section id="sets"><h2>Sets</h2>']
@@ -591,16 +592,19 @@ def _sets_section(inp: ReportInputs, cells: dict[str, str]) -> str:
     if rest:
         dims = _dim_columns(inp)
         trows = []
-        for s, block in sets[sets["set"].isin(set(rest))].groupby("set", sort=True):
-            first = block.iloc[0]
+        tail = sets[sets["set"].isin(set(rest))].sort_values("set", kind="stable")
+        # plain dicts grouped in one pass: a DataFrame per set cost ~0.7 s at 2,500 quads
+        for s, block in itertools.groupby(tail.to_dict("records"), key=lambda r: r["set"]):
+            block = list(block)
+            first = block[0]
             worst = []
             for d, sp, _mg, _pc in dims:
                 v = first.get(sp) if sp else None
                 tol = d.tolerance * (100 if d.relative else 1)
                 if _isnum(v) and tol > 0:
                     worst.append(float(v) / tol)
-            members = ", ".join(f'<span class="id">{e(dv)}</span> ({e(position_text(ps))})'
-                                for dv, ps in zip(block["device"], block["position"]))
+            members = ", ".join(f'<span class="id">{e(r["device"])}</span> '
+                                f'({e(position_text(r.get("position")))})' for r in block)
             trows.append([f'<span id="set-{e(s)}">{e(s)}</span>{_set_mark(inp, first)}', members,
                           f"{max(worst) * 100:.0f} %" if worst else "\u2013"])
         parts.append(f"<h3>Sets {e(rest[0])}\u2013{e(rest[-1])}</h3>"

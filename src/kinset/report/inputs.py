@@ -65,12 +65,20 @@ class ReportInputs:
         return dict(zip(d["device"], d["position"]))
 
 
-def rows_by_device(table: pd.DataFrame | None) -> dict[str, dict]:
-    """Each device's row of a per-device table as a dict (the first row if repeated)."""
+def rows_by_device(table: pd.DataFrame | None, devices=None) -> dict[str, dict]:
+    """Each device's row of a per-device table as a dict (the first row if repeated);
+    with ``devices``, only theirs (a dict per row of a 10,000-part table is costly)."""
     if table is None or not len(table):
         return {}
     t = table.drop_duplicates("device", keep="first")
-    return dict(zip(t["device"].astype(str), t.to_dict("records")))
+    ids = t["device"].astype(str)
+    if devices is not None:
+        keep = ids.isin(set(devices)).to_numpy()
+        t, ids = t[keep], ids[keep]
+    # the same dicts as to_dict("records") (Python scalars), in half the time
+    cols = list(t.columns)
+    records = (dict(zip(cols, r)) for r in zip(*(t[c].tolist() for c in cols)))
+    return dict(zip(ids, records))
 
 
 def fingerprint(path: Path, label: str) -> InputFile:

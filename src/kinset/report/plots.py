@@ -1,4 +1,9 @@
-"""The report's figures, drawn with matplotlib's object API and written as inline SVG.
+"""The report's figures, written as inline SVG.
+
+The many and the large ones (one per drawn set, the reel's distributions) are written
+directly by :mod:`kinset.report.svgchart`, which keeps matplotlib's look and tick choice
+at a small fraction of its cost; the yield funnel and the tolerance scan are drawn with
+matplotlib's object API, as follows.
 
 No pyplot and no global backend: each figure is a :class:`matplotlib.figure.Figure`
 drawn on the SVG canvas inside a private ``rc_context``, so a report never changes
@@ -25,6 +30,7 @@ from matplotlib.patches import Patch
 from matplotlib.ticker import FuncFormatter, LogLocator, MaxNLocator, NullLocator
 
 from kinset.format import si
+from kinset.report import svgchart
 from kinset.si import ZERO_CELSIUS, display_prefix
 from kinset.physics.capacitance import junction_capacitance
 from kinset.physics.forward import saturation_current_at, voltage_from_current
@@ -32,8 +38,7 @@ from kinset.physics.recovery import recovery_waveform
 
 # kinset's own plain, print-friendly look: dark ink on white, thin rules, a palette of
 # well-separated mid-dark hues that stay distinct in greyscale print by marker shape.
-INK = "#222222"
-GRID = "#d9d9d9"
+INK, GRID = svgchart.INK, svgchart.GRID
 ALL_PARTS = "#b9c3cb"
 PLACED = "#2f5d7c"
 LIMIT = "#b5421f"
@@ -142,8 +147,13 @@ def _prefix(values, unit: str) -> tuple[float, str]:
     return factor, prefix + unit
 
 
+def _si_label(unit: str):
+    """A log axis's tick label: the value with an SI prefix (blank at or below zero)."""
+    return lambda v: si(v, unit, 3) if v > 0 else ""
+
+
 def _si_formatter(unit: str) -> FuncFormatter:
-    return FuncFormatter(lambda v, _pos: si(v, unit, 3) if v > 0 else "")
+    return FuncFormatter(lambda v, _pos: _si_label(unit)(v))
 
 
 # --------------------------------------------------------------------------- yield
@@ -214,55 +224,59 @@ class Panel:
     limits: list[tuple[str, float]] = field(default_factory=list)   # ("max", value)
 
 
-@styled
 def distributions_figure(panels: list[Panel], key: str, columns: int = 3) -> str:
+    """One histogram per panel, written by :mod:`kinset.report.svgchart` (a matplotlib
+    figure of ten histograms took 0.7 s of a 10,000-part report)."""
     rows = math.ceil(len(panels) / columns)
-    fig = _figure(7.2, 0.3 + 2.0 * rows)
-    axes = fig.subplots(rows, columns, squeeze=False)
+    width, height = 7.2, 0.3 + 2.0 * rows
     # room between panels for each one's "parts" label beside its neighbour's ticks
-    _margins(fig, rows, left=0.5, top=0.5, wspace=0.8, hspace=0.7)
-    for ax in axes.flat[len(panels):]:
-        ax.set_visible(False)
-    for ax, p in zip(axes.flat, panels):
-        v = np.asarray(p.values, dtype=float)
-        ok = np.isfinite(v) & ((v > 0) if p.log else True)
-        x = v[ok]
-        lims = [val for _, val in p.limits]
-        if p.log:
-            pos = [val for val in lims if val > 0]
-            lo, hi = np.log10(min([x.min()] + pos)), np.log10(max([x.max()] + pos))
-            lo, hi = (lo - 0.5, hi + 0.5) if hi - lo < 1e-9 else (lo - 0.05, hi + 0.05)
-            bins = np.logspace(lo, hi, 41)
-            ax.set_xscale("log")
-            _log_axis(ax.xaxis, p.unit, 5)
-            factor, unit = 1.0, p.unit
-        else:
-            factor, unit = _prefix(x, p.unit)
-            lo, hi = min([x.min()] + lims), max([x.max()] + lims)
-            span = hi - lo if hi > lo else max(abs(hi), 1e-30) * 0.01
-            bins = np.linspace(lo - 0.02 * span, hi + 0.02 * span, 41) / factor
-        xs = x if p.log else x / factor
-        ax.hist(xs, bins=bins, color=ALL_PARTS, histtype="stepfilled")
-        placed = p.placed[ok]
-        if placed.any():
-            ax.hist(xs[placed], bins=bins, color=PLACED, histtype="stepfilled")
-        for _kind, val in p.limits:
-            ax.axvline(val if p.log else val / factor, color=LIMIT, linewidth=1.2,
-                       linestyle="--")
-        dmg = p.damaged[ok]
-        if dmg.any():
-            ax.plot(xs[dmg], np.zeros(int(dmg.sum())), linestyle="none", marker="x",
-                    color=DAMAGED, markersize=4.5, clip_on=False)
-        ax.set_title(f"{p.title} ({len(x)} parts)", loc="left")
-        ax.set_xlabel(unit or "[1]")
-        ax.set_ylabel("parts")
-        ax.yaxis.set_major_locator(MaxNLocator(integer=True))
-    handles = [Patch(color=ALL_PARTS, label="all parts"), Patch(color=PLACED, label="placed in sets"),
-               Line2D([], [], color=LIMIT, linestyle="--", label="screening limit"),
-               Line2D([], [], color=DAMAGED, marker="x", linestyle="none",
-                      label="possible damage (leakage)")]
-    fig.legend(handles=handles, loc="upper center", ncol=4, bbox_to_anchor=(0.5, 1.0))
-    return svg_text(fig, key, "distributions of the reel with screening limits")
+    axes = svgchart.grid(rows, columns, width, height, left=0.5, right=0.12, bottom=0.42,
+                         top=0.5, wspace=0.8, hspace=0.7)
+    for ax, p in zip(axes, panels):
+        _histogram_panel(ax, p)
+    legend = [(ALL_PARTS, {"patch": True}, "all parts"), (PLACED, {"patch": True}, "placed in sets"),
+              (LIMIT, {"linestyle": "--", "linewidth": 1.2}, "screening limit"),
+              (DAMAGED, {"marker": "x", "markersize": 4.5}, "possible damage (leakage)")]
+    return svgchart.figure_svg(axes[:len(panels)], width, height, key,
+                               "distributions of the reel with screening limits", legend=legend)
+
+
+def _histogram_panel(ax, p: Panel) -> None:
+    """Every part, the placed ones over them, limits dashed, damaged parts marked at 0."""
+    v = np.asarray(p.values, dtype=float)
+    ok = np.isfinite(v) & ((v > 0) if p.log else True)
+    x = v[ok]
+    lims = [val for _, val in p.limits]
+    if p.log:
+        pos = [val for val in lims if val > 0]
+        lo, hi = np.log10(min([x.min()] + pos)), np.log10(max([x.max()] + pos))
+        lo, hi = (lo - 0.5, hi + 0.5) if hi - lo < 1e-9 else (lo - 0.05, hi + 0.05)
+        bins = np.logspace(lo, hi, 41)
+        ax.set_xscale("log")
+        ax.x.numticks = 5
+        ax.set_formatter("x", _si_label(p.unit))
+        factor, unit = 1.0, p.unit
+    else:
+        factor, unit = _prefix(x, p.unit)
+        lo, hi = min([x.min()] + lims), max([x.max()] + lims)
+        span = hi - lo if hi > lo else max(abs(hi), 1e-30) * 0.01
+        bins = np.linspace(lo - 0.02 * span, hi + 0.02 * span, 41) / factor
+    xs = x if p.log else x / factor
+    ax.hist(xs, bins, color=ALL_PARTS)
+    placed = p.placed[ok]
+    if placed.any():
+        ax.hist(xs[placed], bins, color=PLACED)
+    for _kind, val in p.limits:
+        ax.axvline(val if p.log else val / factor, color=LIMIT, linewidth=1.2, linestyle="--")
+    dmg = p.damaged[ok]
+    if dmg.any():
+        ax.plot(xs[dmg], np.zeros(int(dmg.sum())), linestyle="none", marker="x",
+                color=DAMAGED, markersize=4.5, clip_on=False)
+    ax.set_title(f"{p.title} ({len(x)} parts)", loc="left")
+    ax.set_xlabel(unit or "[1]")
+    ax.set_ylabel("parts")
+    # parts are counted whole
+    ax.set_locator("y", lambda lo, hi: MaxNLocator(integer=True).tick_values(lo, hi))
 
 
 # --------------------------------------------------------------------------- one set
@@ -336,8 +350,8 @@ def _forward_panel(ax, members, style, currents):
         ax.plot([], [], color=LIMIT, linewidth=0.6, linestyle=":",
                 label="profile's match currents")
     ax.set_yscale("log")
-    _log_axis(ax.yaxis, "A")
-    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v * 1e3:.0f}"))
+    ax.set_formatter("y", _si_label("A"))
+    ax.set_formatter("x", lambda v: f"{v * 1e3:.0f}")
     ax.set_xlabel("forward voltage [mV]")
     ax.set_ylabel("current")
     ax.set_title("forward: readings (markers) and fitted model, at TNOM", loc="left")
@@ -355,12 +369,11 @@ def _deviation_panel(ax, fitted, style, currents, temperature):
         for m, v in zip(fitted, volts):
             ax.plot(cur, (v - mean) * 1e3, color=style[m.device][0], label=_label(m.device))
         ax.set_xscale("log")
-        _log_axis(ax.xaxis, "A")
+        ax.set_formatter("x", _si_label("A"))
         for c in currents:
             ax.axvline(c, color=LIMIT, linewidth=0.6, linestyle=":")
     else:
-        ax.text(0.5, 0.5, "the fitted ranges do not overlap", ha="center",
-                transform=ax.transAxes)
+        ax.text_center("the fitted ranges do not overlap")
     ax.set_xlabel("current")
     ax.set_ylabel("V \u2212 set mean [mV]")
     ax.set_title(f"V minus the set's mean, at {temperature - ZERO_CELSIUS:g} \u00b0C "
@@ -424,11 +437,14 @@ def _recovery_panel(ax, members, style):
     ax.set_title("recovery: model of each part's fit, marker at trr", loc="left")
 
 
-@styled
 def set_figure(members: list[Member], currents: list[float], temperature: float,
                key: str, label: str) -> str:
     """Forward curves (measured and fitted), their deviation from the set's mean,
-    C–V and recovery overlays of one set."""
+    C–V and recovery overlays of one set.
+
+    Written as SVG by :mod:`kinset.report.svgchart` (the same panels, sizes, colours and
+    tick choice as a matplotlib figure here, at a hundredth of its cost: a page draws
+    thirty of these)."""
     has_cv = any(m.cv_points is not None or m.capacitance is not None for m in members)
     has_rr = any(m.recovery is not None and math.isfinite(_f(m.recovery, "tt_s"))
                  for m in members)
@@ -439,11 +455,10 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
         return ""
     cols = 2 if n_panels > 1 else 1
     rows = math.ceil(n_panels / cols)
-    fig = _figure(7.2 if cols == 2 else 3.8, 2.4 * rows)
-    axes = list(fig.subplots(rows, cols, squeeze=False).flat)
-    _margins(fig, rows, wspace=0.85)    # the right panels' y labels clear the left ticks
-    for ax in axes[n_panels:]:
-        ax.set_visible(False)
+    width, height = (7.2 if cols == 2 else 3.8), 2.4 * rows
+    # margins as _margins gives; the right panels' y labels clear the left ticks
+    axes = svgchart.grid(rows, cols, width, height, left=0.62, right=0.12, bottom=0.42,
+                         top=0.24, wspace=0.85, hspace=0.62)[:n_panels]
     style = {m.device: (MEMBER_COLORS[i % len(MEMBER_COLORS)],
                         MEMBER_MARKERS[i % len(MEMBER_MARKERS)]) for i, m in enumerate(members)}
     it = iter(axes)
@@ -464,4 +479,4 @@ def set_figure(members: list[Member], currents: list[float], temperature: float,
         ax = next(it)
         _recovery_panel(ax, members, style)
 
-    return svg_text(fig, key, label)
+    return svgchart.figure_svg(axes, width, height, key, label)
