@@ -12,7 +12,6 @@ import html
 
 import numpy as np
 import pandas as pd
-from matplotlib.figure import Figure
 
 from kinset.circuit.kinds import kind_module
 from kinset.circuit.words import PLAIN_UNITS, figure_label, figure_unit, figure_value
@@ -52,6 +51,7 @@ def badness(values: np.ndarray, better: str) -> np.ndarray:
 def histogram_figure(values: np.ndarray, reference: float, limit: float | None, label: str,
                      unit: str, key: str) -> str:
     """Sets per bin of one figure, the ideally matched reference's median and the limit."""
+    from matplotlib.figure import Figure    # only when there is something to draw
     fig = Figure(figsize=(6.2, 2.0))
     fig.subplots_adjust(left=0.09, right=0.98, bottom=0.24, top=0.95)
     ax = fig.add_subplot()

@@ -44,7 +44,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.integrate import trapezoid  # numpy.trapezoid needs numpy 2; pyproject allows 1.26
 
 from kinset.circuit.kinds import Circuit
 
@@ -161,6 +160,8 @@ def phasors(time: np.ndarray, values: np.ndarray, freqs, start: float,
     """Fourier coefficients (peak amplitude, complex) of each column of ``values`` at each
     frequency, over ``[start, start + window]`` (whole periods of every frequency),
     trapezoid rule on the given points; frequency 0 gives the mean."""
+    # numpy.trapezoid needs numpy 2 (pyproject allows 1.26); imported here, not at start-up
+    from scipy.integrate import trapezoid
     keep = (time >= start - 1e-15) & (time <= start + window + 1e-15)
     tt, vv = time[keep], values[keep]
     out = []
