@@ -275,8 +275,12 @@ def _axes_svg(c: Chart, px, py, xt, yt, xl, yl) -> list[str]:
                f'text-anchor="middle">{_esc(c.xlabel)}</text>')
     out.append(f'<text transform="translate({_n(ylab_x)} {_n(top + height / 2)}) rotate(-90)" '
                f'text-anchor="middle">{_esc(c.ylabel)}</text>')
-    out.append(f'<text x="{_n(left)}" y="{_n(top - TITLE_PAD)}" style="font-size: {_n(TITLE)}px">'
-               f"{_esc(c.title)}</text></g>")
+    # a title longer than its panel (estimated) is squeezed to the panel's width, so it
+    # neither runs into the next panel's title nor off the figure's edge
+    fit = (f' textLength="{_n(width)}" lengthAdjust="spacingAndGlyphs"'
+           if len(c.title) * EM_WIDTH * TITLE > width else "")
+    out.append(f'<text x="{_n(left)}" y="{_n(top - TITLE_PAD)}" style="font-size: {_n(TITLE)}px"'
+               f'{fit}>{_esc(c.title)}</text></g>')
     out.append(f'<rect x="{_n(left)}" y="{_n(top)}" width="{_n(width)}" height="{_n(height)}" '
                f'fill="none" stroke="{INK}" stroke-width="0.6"/>')
     return out
