@@ -26,6 +26,7 @@ import pandas as pd
 
 from kinset import __version__
 from kinset.circuit.kinds import Circuit, kind_module
+from kinset.circuit.kinds.common import card_values
 from kinset.circuit.ngspice import NgspiceError, find_ngspice, run_deck
 from kinset.circuit.words import figure_label, figure_value
 from kinset.errors import InputError
@@ -99,7 +100,7 @@ def read_cards(text: str) -> tuple[dict[str, str], dict[str, str]]:
 
 def lacking(card: str, needs: dict[str, str]) -> list[str]:
     """The parameters of ``needs`` (names) that ``card`` does not set."""
-    given = {k.upper() for k in re.findall(r"([A-Za-z]\w*)\s*=", card)}
+    given = next(iter(card_values(card).values()), {})
     return [k for k in needs if k.upper() not in given]
 
 

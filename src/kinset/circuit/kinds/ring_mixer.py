@@ -46,6 +46,7 @@ import math
 import numpy as np
 
 from kinset.circuit.kinds import Circuit
+from kinset.circuit.kinds.common import head
 
 POSITIONS = 4
 
@@ -145,8 +146,7 @@ def circuit_lines(c: Circuit, t: dict, params: dict) -> list[str]:
 def deck(circuits, params, cards, temperature_C) -> str:
     """One deck holding every ring of ``circuits``; one transient, one table."""
     t = timing(params)
-    lines = ["kinset ring mixer reference circuits",
-             f".options tnom=25 temp={float(temperature_C):.12g}", *cards]
+    lines = head("ring mixer", cards, temperature_C)
     for c in circuits:
         lines += circuit_lines(c, t, params)
     vectors = " ".join(f"v({c.label}_if) v({c.label}_rfp)" for c in circuits)
