@@ -158,13 +158,17 @@ def test_a_second_reel_folder_with_the_same_id_stops(tmp_path):
         (folder / "reel.yaml").write_text(text.replace("\nreel: ", "\nreel: same-id\n# was: "),
                                           encoding="utf-8")
 
-    def run(folder):
+    def run(folder, *targets):
         return subprocess.run([sys.executable, "-m", "snakemake", "-s", str(root / "Snakefile"),
-                               "--cores", "2", "--directory", str(tmp_path), "--config",
-                               f"reel={folder}", f"results={tmp_path / 'results'}"],
+                               "--cores", "2", "--directory", str(tmp_path), *targets,
+                               "--config", f"reel={folder}", f"results={tmp_path / 'results'}"],
                               capture_output=True, text=True, timeout=300)
-    first = run(a)
+    # The first reel claims results/same-id/ with the job that writes its owner file
+    # (rule reel_settings): the whole workflow behind it decides nothing here.
+    owner = tmp_path / "results" / "same-id" / "reel_folder.txt"
+    first = run(a, str(owner))
     assert first.returncode == 0, first.stderr
+    assert owner.is_file()
     second = run(b)
     assert second.returncode != 0
     out = second.stdout + second.stderr
