@@ -47,7 +47,9 @@ it at small sizes). ``--extras-up-to N`` skips, above N parts, the slow extras (
 curve_fit loop, sort-and-pair, whole-reel set forming, the new-file rerun and the
 one-file-per-part plan); ``--timeout`` stops a match, circuit, report or set-forming
 step that runs longer (recorded as stopped, its application then stays out of the
-workflow runs). It prints one markdown table; each target is marked met or not met.
+workflow runs). It prints one markdown table; each target is marked met or not met on
+wall time, as the issue states it; where the same figure in CPU time passes, the mark
+says so (a shared machine stretches wall time by other work, not CPU time).
 Nothing here asserts: the figures are for the README and the issue notes.
 """
 
@@ -100,13 +102,22 @@ WORKFLOW_TIMEOUT = None     # seconds the full snakemake run may take (--workflo
 
 
 class TimedOut(RuntimeError):
-    def __init__(self, wall, peak):
+    def __init__(self, wall, peak, cpu):
         super().__init__(f"stopped after {wall:.0f} s")
-        self.wall, self.peak = wall, peak
+        self.wall, self.peak, self.cpu = wall, peak, cpu
 
 
-def run(cmd: list, log: Path, timeout: float | None = None) -> tuple[float, float]:
-    """Run ``cmd``; wall time [s] and peak resident memory [MB] of it and its children."""
+def _stopped(record) -> bool:
+    return record is not None and record[-1] == "stopped"
+
+
+def _cpu(usage) -> float:
+    return usage.ru_utime + usage.ru_stime
+
+
+def run(cmd: list, log: Path, timeout: float | None = None) -> tuple[float, float, float]:
+    """Run ``cmd``; wall time [s], peak resident memory [MB] and CPU time (user + system)
+    [s] of it and its children."""
     log.parent.mkdir(parents=True, exist_ok=True)
     with open(log, "w") as out:
         t0 = time.perf_counter()
@@ -121,12 +132,12 @@ def run(cmd: list, log: Path, timeout: float | None = None) -> tuple[float, floa
                 os.killpg(proc.pid, 9)          # this step's own process group only
                 _, status, usage = os.wait4(proc.pid, 0)
                 proc.returncode = -9
-                raise TimedOut(wall, usage.ru_maxrss / 1024)
+                raise TimedOut(wall, usage.ru_maxrss / 1024, _cpu(usage))
             time.sleep(0.05)
     proc.returncode = os.waitstatus_to_exitcode(status)
     if proc.returncode:
         raise Failed(f"{' '.join(map(str, cmd))} failed ({proc.returncode}); see {log}")
-    return wall, usage.ru_maxrss / 1024
+    return wall, usage.ru_maxrss / 1024, _cpu(usage)
 
 
 def timed(cmd: list, log: Path):
@@ -134,29 +145,30 @@ def timed(cmd: list, log: Path):
     try:
         return run(cmd, log, TIMEOUT)
     except TimedOut as exc:
-        return exc.wall, exc.peak, "stopped"
+        return exc.wall, exc.peak, exc.cpu, "stopped"
 
 
 def kinset(*args) -> list:
     return [PY, "-m", "kinset", *args]
 
 
-def raw_read(reel: Path, dataset: str) -> float:
-    """pandas.read_csv of a dataset's files [s] (capacitance: with the Touchstone bodies)."""
+def raw_read(reel: Path, dataset: str) -> tuple[float, float]:
+    """pandas.read_csv of a dataset's files, wall and CPU [s] (capacitance: with the
+    Touchstone bodies)."""
     r = load_reel(reel)
     files = r.dataset_files(dataset)
     touchstone = []
     if dataset == "capacitance" and (reel / "capacitance" / "index.csv").is_file():
         files.append(reel / "capacitance" / "index.csv")
         touchstone = sorted((reel / "capacitance").glob("*.s1p"))
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     for f in files:
         pd.read_csv(f, comment="#")
     for f in touchstone:
         data = f.read_bytes()
         body = data[data.index(b"\n", data.index(b"\n#") + 1) + 1:]
         pd.read_csv(io.BytesIO(body), sep=" ", header=None)
-    return time.perf_counter() - t0
+    return time.perf_counter() - t0, time.process_time() - c0
 
 
 def curve_fit_baseline(reel: Path, steps: Path, sample: int) -> dict:
@@ -164,14 +176,14 @@ def curve_fit_baseline(reel: Path, steps: Path, sample: int) -> dict:
     r = load_reel(reel)
     truth = pd.read_csv(reel / "truth.csv", comment="#", keep_default_na=False)
     chosen = set(truth["device"].iloc[:sample])
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     points = pd.concat([pd.read_csv(f, comment="#") for f in r.dataset_files("forward")],
                        ignore_index=True)
-    read = time.perf_counter() - t0
+    read, read_cpu = time.perf_counter() - t0, time.process_time() - c0
     points = points[points["device"].isin(chosen)]
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     loop = curve_fit_points(points, forward_settings(r))
-    fit = time.perf_counter() - t0
+    fit, fit_cpu = time.perf_counter() - t0, time.process_time() - c0
     ours = pd.read_csv(steps / "forward.csv")
     errors = {}
     for name, table in (("kinset", ours.rename(columns={"n": "n_fit"})), ("loop", loop)):
@@ -182,7 +194,8 @@ def curve_fit_baseline(reel: Path, steps: Path, sample: int) -> dict:
                         "RS": np.nanmedian(np.abs(m["rs_ohm_fit"] / m["rs_ohm"] - 1)),
                         "failed": int(m["is_A_fit"].isna().sum())}
     return {"sample": len(chosen), "read": read, "fit": fit,
-            "scaled": read + fit * len(truth) / len(chosen), "errors": errors}
+            "scaled": read + fit * len(truth) / len(chosen),
+            "scaled_cpu": read_cpu + fit_cpu * len(truth) / len(chosen), "errors": errors}
 
 
 def sort_and_pair(steps: Path, application: str) -> tuple[int, float]:
@@ -220,16 +233,16 @@ def jobs(log: Path) -> dict[str, int]:
     return out
 
 
-def write_time(steps: Path, dataset: str, scratch: Path) -> float:
-    """``DataFrame.to_csv`` of the tables a step wrote (its table and side tables) [s]:
-    read back with pandas, then written again, timed in this process."""
+def write_time(steps: Path, dataset: str, scratch: Path) -> tuple[float, float]:
+    """``DataFrame.to_csv`` of the tables a step wrote (its table and side tables), wall
+    and CPU [s]: read back with pandas, then written again, timed in this process."""
     scratch.mkdir(parents=True, exist_ok=True)
     tables = [steps / f"{dataset}.csv"] + sorted(steps.glob(f"{dataset}_*.csv"))
     frames = [pd.read_csv(t) for t in tables]
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     for t, frame in zip(tables, frames):
         frame.to_csv(scratch / t.name, index=False)
-    took = time.perf_counter() - t0
+    took = time.perf_counter() - t0, time.process_time() - c0
     shutil.rmtree(scratch)
     return took
 
@@ -250,15 +263,19 @@ def form_whole_reel(results: Path, application: str, out: Path) -> None:
                                "method": found.method, "wall": wall, "cpu": cpu}))
 
 
-def fixed_costs(work: Path) -> dict[str, float]:
-    """Each step on a reel of 20 parts, fastest of 3 [s]: what it pays before any work."""
+def fixed_costs(work: Path) -> dict[str, tuple[float, float]]:
+    """Each step on a reel of 20 parts, fastest of 3, wall and CPU [s]: what it pays
+    before any work."""
     tiny, out, logs = work / "reel-20", work / "tiny", work / "logs-tiny"
     if not (tiny / "reel.yaml").is_file():
         run(kinset("demo", "--out", tiny, "--devices", 20, "--seed", SEED, "--layout",
                    "batches"), logs / "demo.log")
     apps = load_reel(tiny).settings["applications"]
     shutil.rmtree(out, ignore_errors=True)
-    fastest = lambda cmd, name: min(run(cmd, logs / f"{name}.log")[0] for _ in range(3))
+    def fastest(cmd, name):
+        runs = [run(cmd, logs / f"{name}.log") for _ in range(3)]
+        return min(r[0] for r in runs), min(r[2] for r in runs)
+
     fixed = {f"extract {d}": fastest(kinset("extract", d, "--reel", tiny, "-o", out / f"{d}.csv"),
                                      f"extract_{d}") for d in NAMES}
     run(kinset("check-reel", "--reel", tiny, "-o", out / "reel.json"), logs / "reel.log")
@@ -300,10 +317,10 @@ def matching(m: dict, steps: Path, logs: Path, extras: bool) -> None:
             out = steps.parent / f"whole_{a}.json"
             m[f"whole {a}"] = timed([PY, __file__, "--form-sets", steps, a, out],
                                     logs / f"whole_{a}.log")
-            if len(m[f"whole {a}"]) == 2:
+            if not _stopped(m[f"whole {a}"]):
                 m[f"whole sets {a}"] = json.loads(out.read_text())
             m[f"by hand {a}"] = sort_and_pair(steps, a)
-        if len(m[f"match {a}"]) == 3:
+        if _stopped(m[f"match {a}"]):
             return          # stopped: the applications after it have no --after folder
         summary = json.loads((steps / a / "summary.json").read_text())
         m[f"sets {a}"] = (summary["sets"], summary["upper_bound"], summary["set_size"],
@@ -330,7 +347,7 @@ def workflow(m: dict, reel: Path, work: Path, logs: Path, extras: bool) -> None:
     try:
         m["wf full"] = run(smk, logs / "wf_full.log", WORKFLOW_TIMEOUT)
     except TimedOut as exc:
-        m["wf full"] = (exc.wall, exc.peak, "stopped")
+        m["wf full"] = (exc.wall, exc.peak, exc.cpu, "stopped")
         return
     print(f"  {m['devices']}: workflow {m['wf full'][0]:.1f} s", file=sys.stderr)
     m["wf noop"] = run(smk, logs / "wf_noop.log")
@@ -373,7 +390,7 @@ def bench(devices: int, work: Path, sample: int, extras: bool, reuse: bool) -> d
     matching(m, steps, logs, extras)
     # The workflow runs the applications whose matching finished in time.
     m["workflow applications"] = [a for a in m["applications"]
-                                  if len(m.get(f"match {a}", ())) == 2]
+                                  if f"match {a}" in m and not _stopped(m[f"match {a}"])]
     if extras:
         m["loop"] = curve_fit_baseline(reel, steps, sample)
         print(f"  {devices}: curve_fit loop done", file=sys.stderr)
@@ -385,8 +402,15 @@ def _s(t: float) -> str:
     return f"{t:.2f} s" if t < 10 else f"{t:.1f} s" if t < 600 else f"{t / 60:.1f} min"
 
 
-def _mark(ok: bool) -> str:
-    return "met" if ok else "**not met**"
+def _mark(ok: bool, cpu_ok: bool | None = None) -> str:
+    """Met or not on wall time; where the same ratio in CPU time passes, said beside (a
+    shared machine stretches wall time with other work, not CPU time)."""
+    return "met" if ok else "**not met**" + (" (met in CPU time)" if cpu_ok else "")
+
+
+def _pair(x) -> str:
+    """wall (CPU) of an in-process timing or a fixed cost."""
+    return f"{_s(x[0])} ({_s(x[1])} CPU)"
 
 
 def _short(method: str) -> str:
@@ -402,7 +426,7 @@ def _slopes(sizes: list[int], times: list) -> list[str]:
             out.append("")
             continue
         k = math.log(t2[0] / t1[0]) / math.log(n2 / n1)
-        out.append(f"{'≥ ' if len(t2) == 3 else ''}{k:.2f}")
+        out.append(f"{'≥ ' if _stopped(t2) else ''}{k:.2f}")
     return out
 
 
@@ -431,8 +455,9 @@ class Table:
     def step(self, name, key, target="", marks=None):
         """A step's wall time and peak memory, with its slope."""
         cells = [("—" if r.get(key) is None else
-                  f"{'> ' if len(r[key]) == 3 else ''}{_s(r[key][0])}, {r[key][1]:.0f} MB"
-                  + (" (stopped at the time limit)" if len(r[key]) == 3 else ""))
+                  f"{'> ' if _stopped(r[key]) else ''}{_s(r[key][0])} ({_s(r[key][2])} CPU), "
+                  f"{r[key][1]:.0f} MB" + (" (stopped at the time limit)" if _stopped(r[key])
+                                           else ""))
                  for r in self.results]
         self.row(name, cells, target, marks, self.times(key))
 
@@ -440,8 +465,8 @@ class Table:
         """The step's fixed cost (measured once per benchmark run, on 20 parts)."""
         got = [r["fixed"].get(key) for r in self.results]
         self.row("&nbsp;&nbsp;fixed cost (the same step on 20 parts)",
-                 ["—" if x is None else _s(x) for x in got], "≤ 0.4 s",
-                 ["" if x is None else _mark(x <= 0.4) for x in got])
+                 ["—" if x is None else _pair(x) for x in got], "≤ 0.4 s",
+                 ["" if x is None else _mark(x[0] <= 0.4, x[1] <= 0.4) for x in got])
 
 
 def _extraction_rows(t: Table) -> None:
@@ -454,13 +479,16 @@ def _extraction_rows(t: Table) -> None:
     for d in NAMES:
         t.step(f"`kinset extract {d}` (raw files)", f"extract {d}")
         t.fixed(f"extract {d}")
-        t.row("&nbsp;&nbsp;`pandas.read_csv` of its files", [_s(r[f"raw {d}"]) for r in res])
+        t.row("&nbsp;&nbsp;`pandas.read_csv` of its files",
+              [_pair(r[f"raw {d}"]) for r in res])
         t.row("&nbsp;&nbsp;`DataFrame.to_csv` of the tables it wrote",
-              [_s(r[f"write {d}"]) for r in res])
-        ratio = [(r[f"extract {d}"][0] - r["fixed"][f"extract {d}"])
-                 / (r[f"raw {d}"] + r[f"write {d}"]) for r in res]
-        t.row("&nbsp;&nbsp;ratio (step − fixed) / (read_csv + to_csv)",
-              [f"{x:.1f}×" for x in ratio], "≤ 2×", [_mark(x <= 2) for x in ratio])
+              [_pair(r[f"write {d}"]) for r in res])
+        ratio = [[(r[f"extract {d}"][k] - r["fixed"][f"extract {d}"][j])
+                  / (r[f"raw {d}"][j] + r[f"write {d}"][j]) for k, j in ((0, 0), (2, 1))]
+                 for r in res]
+        t.row("&nbsp;&nbsp;ratio (step − fixed) / (read_csv + to_csv): wall (CPU)",
+              [f"{x:.1f}× ({c:.1f}×)" for x, c in ratio], "≤ 2×",
+              [_mark(x <= 2, c <= 2) for x, c in ratio])
     t.step("`kinset devices`", "devices step")
     t.fixed("devices step")
 
@@ -498,8 +526,8 @@ def _application_rows(t: Table, a: str) -> None:
     t.step(f"`kinset circuit` {a} (ngspice, 2 threads)", f"circuit {a}")
     t.fixed(f"circuit {a}")
     t.step(f"`kinset report` {a}", f"report {a}", "≤ 5 s at 10k",
-           [_mark(r[f"report {a}"][0] <= 5) if r["devices"] == 10000 and f"report {a}" in r
-            else "" for r in res])
+           [_mark(r[f"report {a}"][0] <= 5, r[f"report {a}"][2] <= 5)
+            if r["devices"] == 10000 and f"report {a}" in r else "" for r in res])
     t.fixed(f"report {a}")
     hand = [r.get(f"by hand {a}") for r in res]
     if any(hand):
@@ -516,11 +544,12 @@ def _loop_rows(t: Table) -> None:
           ["—" if x is None else f"{_s(x['scaled'])} (fit of {x['sample']} parts timed, scaled)"
            for x in loops])
     speed = [None if x is None else
-             x["scaled"] / (r["extract forward"][0] - r["fixed"]["extract forward"])
+             [x[a] / (r["extract forward"][k] - r["fixed"]["extract forward"][j])
+              for a, k, j in (("scaled", 0, 0), ("scaled_cpu", 2, 1))]
              for x, r in zip(loops, res)]
-    t.row("&nbsp;&nbsp;speed-up: loop / (kinset extract forward − fixed)",
-          ["—" if x is None else f"{x:.0f}×" for x in speed], "≥ 20×",
-          ["" if x is None else _mark(x >= 20) for x in speed])
+    t.row("&nbsp;&nbsp;speed-up: loop / (kinset extract forward − fixed): wall (CPU)",
+          ["—" if x is None else f"{x[0]:.0f}× ({x[1]:.0f}×)" for x in speed], "≥ 20×",
+          ["" if x is None else _mark(x[0] >= 20, x[1] >= 20) for x in speed])
     whole = ["—" if x is None else f"{x['scaled'] / r['extract forward'][0]:.0f}×"
              for x, r in zip(loops, res)]
     t.row("&nbsp;&nbsp;speed-up: loop / whole step (start-up included)", whole)
@@ -544,15 +573,19 @@ def _workflow_rows(t: Table) -> None:
     t.row("applications in the workflow runs", [", ".join(r["workflow applications"])
                                                for r in res], "all")
     t.step("`snakemake --cores 2` full run", "wf full")
-    read = [sum(r[f"raw {d}"] for d in NAMES) for r in res]
-    ratio = [None if "wf full" not in r else r["wf full"][0] / x for r, x in zip(res, read)]
-    t.row("&nbsp;&nbsp;ratio full run / summed `pandas.read_csv` of its input files",
-          [f"{_s(x)} read; " + ("—" if y is None else f"{y:.1f}×") for x, y in zip(read, ratio)],
-          "≤ 5× at 10k", [_mark(y <= 5) if y is not None and r["devices"] == 10000 else ""
-                          for y, r in zip(ratio, res)])
+    read = [[sum(r[f"raw {d}"][j] for d in NAMES) for j in (0, 1)] for r in res]
+    ratio = [None if "wf full" not in r else (r["wf full"][0] / x[0], r["wf full"][2] / x[1])
+             for r, x in zip(res, read)]
+    t.row("&nbsp;&nbsp;ratio full run / summed `pandas.read_csv` of its input files: "
+          "wall (CPU)", [f"{_pair(x)} read; " + ("—" if y is None else
+                                                  f"{y[0]:.1f}× ({y[1]:.1f}×)")
+                         for x, y in zip(read, ratio)],
+          "≤ 5× at 10k", [_mark(y[0] <= 5, y[1] <= 5) if y is not None and r["devices"] == 10000
+                          else "" for y, r in zip(ratio, res)])
     noop = [r.get("wf noop") for r in res]
-    t.row("no-op rerun", ["—" if x is None else _s(x[0]) for x in noop], "≤ 3 s at 10k",
-          ["" if x is None or r["devices"] != 10000 else _mark(x[0] <= 3)
+    t.row("no-op rerun", ["—" if x is None else f"{_s(x[0])} ({_s(x[2])} CPU)" for x in noop],
+          "≤ 3 s at 10k",
+          ["" if x is None or r["devices"] != 10000 else _mark(x[0] <= 3, x[2] <= 3)
            for x, r in zip(noop, res)], noop)
     expected = {"parse", "extract_forward", "devices", "match", "report", "all"}
     new = [r.get("wf new jobs") for r in res]
@@ -619,7 +652,8 @@ def main() -> None:
             print(table(results[-1:]), file=sys.stderr)
         print(table(results))
         print()
-        print(f"2 cores; times are wall clock of one run; {sys.version.split()[0]}")
+        print(f"{os.cpu_count()} cores; wall-clock times of one run, CPU time (user + system, "
+              f"children included) in brackets; Python {sys.version.split()[0]}")
 
 
 if __name__ == "__main__":
