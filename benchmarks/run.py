@@ -511,6 +511,11 @@ def _application_rows(t: Table, a: str) -> None:
            _mark(x[4] or x[0] >= (0.999 if r["devices"] >= 100000 else 1) * x[1])
            for x, r in zip(got, res)])
     whole = [r.get(f"whole sets {a}") for r in res]
+    stopped = [_stopped(r.get(f"whole {a}")) for r in res]
+    if any(stopped):
+        t.row("&nbsp;&nbsp;set forming offered the whole reel (`form_sets`)",
+              [f"stopped after {_s(r[f'whole {a}'][0])} ({_s(r[f'whole {a}'][2])} CPU)" if st
+               else "" for r, st in zip(res, stopped)])
     if any(whole):
         limit, share = (10, 1.0) if pairs else (60, 0.99)
         t.row("&nbsp;&nbsp;set forming offered the whole reel (`form_sets`): sets / bound, "
