@@ -33,7 +33,7 @@ from kinset.fitting.plausible import CAPACITANCE as PLAUSIBLE_CAPACITANCE, beyon
 from kinset.fitting.touchstone import point_status
 from kinset.format import si
 from kinset.outcomes import Finding, compose
-from kinset.physics.constants import ZERO_CELSIUS
+from kinset.si import ZERO_CELSIUS
 
 # --------------------------------------------------------------------------- C–V fit
 VJ_RANGE_V = (0.1, 3.0)       # [V] default bounds of VJ (the reel.yaml key overrides)
