@@ -78,7 +78,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import Groups
+from kinset.fitting.batch import Groups, factorize_runs
 from kinset.format import si
 from kinset.outcomes import Catalogue, Finding, compose
 from kinset.physics.recovery import transit_time
@@ -517,8 +517,8 @@ def _concat_captures(parts: list[_Captures]) -> _Captures:
 
 def _captures(points: pd.DataFrame, settings: RecoverySettings) -> _Captures:
     """Analyse every capture in one table of samples."""
-    dev_codes, names = pd.factorize(points["device"].astype(str).to_numpy(), sort=True)
-    src_codes, src_names = pd.factorize(points["source"].astype(str).to_numpy(), sort=True)
+    dev_codes, names = factorize_runs(points["device"].astype(str).to_numpy())
+    src_codes, src_names = factorize_runs(points["source"].astype(str).to_numpy())
     t_all = points["time"].to_numpy(dtype=float)
     i_all = points["current"].to_numpy(dtype=float)
     # Files list each capture's samples in time order, one device after another: then
