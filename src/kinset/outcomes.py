@@ -80,7 +80,10 @@ class Catalogue(Mapping[str, Note]):
         from importlib import resources
         text = (resources.files("kinset") / "notes" / f"{name}.yaml").read_text(encoding="utf-8")
         # libyaml's safe loader where PyYAML has it: the same data, 0.03 s less start-up
-        entries = yaml.load(text, Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader)) or {}
+        if hasattr(yaml, "CSafeLoader"):
+            entries = yaml.load(text, Loader=yaml.CSafeLoader) or {}
+        else:
+            entries = yaml.safe_load(text) or {}
         return cls(name, [*(Note(code, e["status"], e["text"]) for code, e in entries.items()),
                           *extra])
 
