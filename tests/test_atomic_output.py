@@ -48,6 +48,27 @@ def test_a_failed_write_leaves_the_old_file_and_no_temporary(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["table.csv"]
 
 
+def test_long_columns_are_written_as_pandas_writes_them(tmp_path):
+    # Reference: pandas.DataFrame.to_csv(float_format="%.10g", index=False), byte for
+    # byte, on columns long enough to be formatted one distinct value at a time: few
+    # distinct floats with NaN, both signed zeros, ints, bools, text with missing cells
+    # and a comma, text mixed with numbers (1 and 1.0 print differently), mostly distinct.
+    n = 3000
+    rng = np.random.default_rng(8)
+    few = rng.choice([1e-5, 0.1, 1.0 / 3.0, np.nan, 2.5e7], n)
+    frame = pd.DataFrame({
+        "device": rng.choice(["D1", "D2", "x,y", None], n).astype(object),
+        "few": few,
+        "zeros": rng.choice([0.0, -0.0, 1.0], n),
+        "ints": rng.integers(0, 5, n), "flags": rng.random(n) < 0.5,
+        "mixed": pd.Series(rng.choice([1, 1.0, "1", True], n).tolist(), dtype=object),
+        "many": rng.normal(size=n),
+    })
+    write_csv(frame, tmp_path / "ours.csv")
+    frame.to_csv(tmp_path / "pandas.csv", index=False, float_format="%.10g")
+    assert (tmp_path / "ours.csv").read_bytes() == (tmp_path / "pandas.csv").read_bytes()
+
+
 def test_text_csv_and_npz_round_trip(tmp_path):
     frame = pd.DataFrame({"device": ["A", "B"], "v": [0.5, 1.0 / 3.0]})
     write_csv(frame, tmp_path / "sub" / "t.csv")             # creates the folder

@@ -20,6 +20,7 @@ from kinset.demo_production import (BATCH_PARTS, FORWARD_CURRENTS, LEAKAGE_VOLTA
                                     RECOVERY_SAMPLES)
 from kinset.registry import dataset as dataset_record
 from kinset.io.reel import load_reel
+from kinset.io.touchstone import read_plain_touchstone, read_touchstone
 from kinset.workflow import make_plan
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -75,6 +76,11 @@ def test_a_tenth_of_the_parts_in_touchstone_files_that_scikit_rf_reads(reels):
         # A passive one-port reflects at most what it receives, |S11| <= 1 (from memory,
         # any microwave text; the demo adds 2e-4 rms of noise, hence the margin).
         assert np.all(np.abs(net.s) < 1.01)
+        # kinset reads the demo's files with its plain reader: the same numbers as
+        # scikit-rf's (the reference), bit for bit.
+        assert read_plain_touchstone(str(folder / name)) is not None
+        sweep = read_touchstone(folder / name)
+        assert sweep.frequency.tolist() == net.f.tolist() and sweep.s.tolist() == net.s.tolist()
     assert set(index.groupby("device").size()) == {3}
 
 

@@ -16,6 +16,12 @@ def test_thermal_voltage_codata():
     assert thermal_voltage(300.0) == pytest.approx(constants.k * 300 / constants.e, rel=1e-15)
 
 
+def test_constants_are_scipys_codata_values():
+    # scipy.constants (CODATA 2018; k and e exact since the 2019 SI): the same floats
+    from kinset.physics.constants import BOLTZMANN, ELEMENTARY_CHARGE
+    assert BOLTZMANN == constants.k and ELEMENTARY_CHARGE == constants.e
+
+
 def test_banwell_jayakumar_against_ngspice_value():
     # ngspice 39 (Debian): IS = 1e-14 A, N = 1.5, RS = 10 Ohm at 27 °C draws about
     # 1.1592 mA at 1.0 V. Closed form: Banwell & Jayakumar, Electronics Letters 36(4), 2000.

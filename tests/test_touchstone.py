@@ -374,3 +374,66 @@ def test_a_file_off_its_own_midband_capacitance_is_rejected(tmp_path):
     assert row["status"] == "rejected"
     assert "c_disagrees_with_file" in row["reason_code"].split(";")
     assert "off the file's own" in row["note"]
+
+
+def _skrf_sweep(path: Path):
+    """(f, s, z0) as scikit-rf reads the file: the reference for the plain reader."""
+    net = skrf.Network()
+    net.read_touchstone(str(path))
+    return net.f, net.s, np.broadcast_to(np.asarray(net.z0, dtype=complex), net.s.shape[:2])
+
+
+@pytest.mark.parametrize("form", ["ri", "ma", "db"])
+@pytest.mark.parametrize("fixture", ["reflection", "series"])
+def test_plain_reader_gives_what_scikit_rf_reads(tmp_path, form, fixture):
+    # Reference: scikit-rf reading the same file, number for number (frequency, S, Z0);
+    # files written by scikit-rf in each number format, one- and two-port, with noise.
+    net = networks(media(z0=75.0), fixture)[0].copy()
+    net.s = net.s + 1e-3 * np.random.default_rng(3).standard_normal(net.s.shape)
+    path = tmp_path / f"x.s{net.nports}p"
+    net.write_touchstone(filename=str(path), form=form, skrf_comment=False)
+    sweep = read_touchstone(path)
+    f, s, z0 = _skrf_sweep(path)
+    assert sweep.frequency.tolist() == f.tolist()
+    assert sweep.s.tolist() == s.tolist()
+    assert sweep.reference_impedance.tolist() == z0.tolist()
+
+
+@pytest.mark.parametrize("name, text, plain", [
+    # hand-written v1 files (Touchstone 1.1 specification layouts): the defaults of an
+    # empty option line (GHz S MA R 50), kHz, comments after the data, upper-case names
+    ("a.s1p", "! a comment\n#\n1 0.5 -30\n2 0.4 -60\n", True),
+    ("b.S1P", "# KHZ s ri r 50 ! trailing\n100 0.1 0.2\n\n200 0.3 -0.4\n", True),
+    ("c.s1p", "# MHz S DB R 50\n10 -3.0 45\n20 -6.5 90\n", True),
+    # what the plain reader leaves to scikit-rf: per-port resistances, Z data, a two-port
+    # wrapped over lines, frequencies that fall (v1 two-port noise data)
+    ("d.s2p", "# GHz S MA R 50 75\n1 0.5 -30 0.1 10 0.1 10 0.4 -60\n", False),
+    ("e.s1p", "# GHz Z RI R 50\n1 10 -20\n2 10 -10\n", False),
+    ("f.s2p", "# GHz S RI R 50\n1 0.5 0.1 0.2 0.1\n 0.2 0.1 0.4 0.1\n", False),
+    ("g.s1p", "# MHz S RI R 50\n10 0.5 0.1 ! a note\n20 0.4 0.2\n", False),
+])
+def test_plain_reader_or_scikit_rf_the_numbers_agree(tmp_path, name, text, plain):
+    from kinset.io.touchstone import read_plain_touchstone
+    path = tmp_path / name
+    path.write_text(text)
+    assert (read_plain_touchstone(str(path)) is not None) == plain
+    sweep = read_touchstone(path)
+    f, s, z0 = _skrf_sweep(path)       # reference: scikit-rf
+    assert sweep.frequency.tolist() == f.tolist() and sweep.s.tolist() == s.tolist()
+    assert sweep.reference_impedance.tolist() == z0.tolist()
+
+
+def test_plain_reader_leaves_two_port_noise_data_to_scikit_rf(tmp_path):
+    # Touchstone 1.1: a v1 two-port's noise parameters follow the network data, their
+    # frequencies starting again; reference: scikit-rf reading the same file.
+    from kinset.io.touchstone import read_plain_touchstone
+    path = tmp_path / "amp.s2p"
+    path.write_text("# GHz S MA R 50\n"
+                    "1 0.5 -30 2.0 80 0.01 10 0.4 -60\n"
+                    "2 0.4 -60 1.8 60 0.02 20 0.3 -90\n"
+                    "1 1.5 0.3 45 0.2\n2 1.8 0.35 60 0.25\n")
+    assert read_plain_touchstone(str(path)) is None
+    sweep = read_touchstone(path)
+    f, s, _ = _skrf_sweep(path)
+    assert sweep.frequency.tolist() == f.tolist() == [1e9, 2e9]
+    assert sweep.s.tolist() == s.tolist()

@@ -6,7 +6,6 @@ import argparse
 import sys
 from pathlib import Path
 
-from kinset import __version__
 from kinset.errors import InputError
 # Only the dataset records here (they import nothing heavy): each command imports what it
 # needs, so that a job that only parses files does not pay for importing the fits.
@@ -245,10 +244,23 @@ def _ledger_parsers(sub) -> None:
     rp.set_defaults(func=_cmd_replace)
 
 
+class _Version(argparse.Action):
+    """``--version``, looked up only when asked (see ``kinset.__getattr__``)."""
+
+    def __init__(self, option_strings, dest=argparse.SUPPRESS, **kwargs):
+        super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS,
+                         help="show the program's version number and exit")
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        from kinset import __version__
+        print(f"kinset {__version__}")
+        parser.exit()
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="kinset", description="Characterise a reel of diodes "
                                 "and form matched sets.")
-    p.add_argument("--version", action="version", version=f"kinset {__version__}")
+    p.add_argument("--version", action=_Version)
     sub = p.add_subparsers(dest="command", required=True)
 
     e = sub.add_parser("extract", help="fit one dataset's model to every device")

@@ -13,7 +13,6 @@ from pathlib import Path
 import pandas as pd
 
 from kinset.errors import InputError
-from kinset.fitting.forward import ForwardSettings, fit_forward
 from kinset.io.parsed import read_inputs
 from kinset.io.reel import Reel
 
@@ -51,7 +50,11 @@ def _reel_relative(reel: Reel, result: Extraction) -> Extraction:
     return result
 
 
-def forward_settings(reel: Reel) -> ForwardSettings:
+def forward_settings(reel: Reel):
+    """The forward fit's settings (:class:`kinset.fitting.forward.ForwardSettings`)."""
+    # Imported here, as for the other datasets: the forward fit needs scipy.special and
+    # scipy.constants, ~0.2 s of start-up the other steps would pay for nothing.
+    from kinset.fitting.forward import ForwardSettings
     return ForwardSettings(
         reference_temperature=reel.reference_temperature,
         ambient_temperature=reel.ambient_temperature,
@@ -76,6 +79,7 @@ def extract_forward(reel: Reel, files: list[str | Path]) -> Extraction:
 
     Gives ``forward.csv`` and the readings table ``forward_readings.csv``.
     """
+    from kinset.fitting.forward import fit_forward
     points = read_inputs("forward", _inputs(reel, "forward", files))
     table, readings = fit_forward(points, forward_settings(reel))
     return _reel_relative(reel, Extraction(table, {"readings": readings}))

@@ -33,7 +33,7 @@ from kinset.fitting.plausible import CAPACITANCE as PLAUSIBLE_CAPACITANCE, beyon
 from kinset.fitting.touchstone import point_status
 from kinset.format import si
 from kinset.outcomes import Finding, compose
-from kinset.physics.constants import ZERO_CELSIUS
+from kinset.si import ZERO_CELSIUS
 
 # --------------------------------------------------------------------------- C–V fit
 VJ_RANGE_V = (0.1, 3.0)       # [V] default bounds of VJ (the reel.yaml key overrides)
@@ -326,7 +326,10 @@ def _summarise(pt: _Points, fit: _Fit, s: CapacitanceSettings) -> dict[str, np.n
         return g.sum(np.where(mask, x, 0.0)) / np.maximum(count, 1)
 
     src = pt.frame["source"].astype(str).to_numpy()
-    cv_names = pd.factorize(np.asarray([Path(f).name for f in src], dtype=object))[0]
+    files, paths = pd.factorize(src)
+    # Each distinct file's name once (not per point: 2.3 s of pathlib on a 10,000-part
+    # reel); the codes are those of factorizing the rows' names, first seen first.
+    cv_names = pd.factorize(np.asarray([Path(f).name for f in paths], dtype=object))[0][files]
     z, rel = resid / pt.sigma, resid / pt.cap
     return {
         "resid": resid, "n_used": n_used, "n_cv": n_cv, "n_vna": n_vna,
@@ -339,7 +342,7 @@ def _summarise(pt: _Points, fit: _Fit, s: CapacitanceSettings) -> dict[str, np.n
         "rel_cv": mean(rel, fit_rows & ~vna, n_cv), "rel_vna": mean(rel, fit_rows & vna, n_vna),
         "n_nonpos": g.count(pt.nonpos), "n_forward": g.count(pt.forward),
         "n_rejected": g.count(pt.rejected), "n_warned": g.count(pt.warned),
-        "cv_files": g.distinct(pd.factorize(src)[0], ~vna),
+        "cv_files": g.distinct(files, ~vna),
         "cv_names": g.distinct(cv_names, ~vna),
     }
 

@@ -388,14 +388,14 @@ class _Identified:
 def _half_widths(r: _Readings, se, rms, fixed) -> tuple[np.ndarray, np.ndarray]:
     """95 % half-widths (Student t with the fit's dof; infinite without dof) of the
     parameters (ln IS0, N, RS), and the residual standard deviation [V]."""
-    # scipy.stats here, not at the top: every step that imports this module (parse, the
-    # other extractions, the report) would pay ~0.4 s for it
-    from scipy.stats import t as student_t
+    # The Student t quantile from scipy.special (stdtrit, the function scipy.stats.t.ppf
+    # calls for df > 0): importing scipy.stats cost a step ~1 s of start-up (issue 18).
+    from scipy.special import stdtrit
     m = r.groups.count(r.used).astype(float)
     dof = m - 3 + fixed
     with np.errstate(invalid="ignore", divide="ignore"):
         sd = np.where(dof > 0, rms * np.sqrt(m / np.maximum(dof, 1)), np.nan)
-        t = np.where(dof > 0, student_t.ppf(0.5 + CONFIDENCE / 2, np.maximum(dof, 1)), np.inf)
+        t = np.where(dof > 0, stdtrit(np.maximum(dof, 1), 0.5 + CONFIDENCE / 2), np.inf)
     return t[:, None] * np.where(np.isfinite(se), se, np.inf), sd
 
 

@@ -56,7 +56,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from kinset.fitting.batch import ByDevice, Groups
+from kinset.fitting.batch import ByDevice, Groups, factorize_runs
 from kinset.fitting.plausible import REVERSE_CURRENT, REVERSE_VOLTAGE, beyond, column_names
 from kinset.format import si
 from kinset.outcomes import Catalogue, Finding, compose
@@ -249,7 +249,7 @@ def _usable_points(points: pd.DataFrame, s: LeakageSettings):
     """
     rows = ByDevice(points)
     names, by_device, every = rows.names, rows.order, rows.groups
-    src, src_names = pd.factorize(points["source"].astype(str).to_numpy())
+    src, src_names = factorize_runs(points["source"].astype(str).to_numpy(), sort=False)
     v, i = rows.column("reverse_voltage"), rows.column("reverse_current")
     t = rows.temperature(s.ambient_temperature)
     # Sign convention: a device whose every non-zero voltage (or current) is negative

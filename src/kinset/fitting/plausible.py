@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kinset.fitting.batch import Groups
+from kinset.fitting.batch import Groups, factorize_runs
 from kinset.format import likely_unit, si
 from kinset.outcomes import Finding
 
@@ -73,7 +73,10 @@ CAPACITANCE = Bound(
 def column_names(values: np.ndarray, bound: Bound) -> np.ndarray:
     """Column names as read (a table without them, or a row without one: the SI name)."""
     out = np.asarray(values, dtype=object).copy()
-    missing = np.array([not isinstance(v, str) or v in ("", "nan") for v in out], dtype=bool)
+    # Judged once per distinct name (a reel's 400,000 readings hold a handful), not per row
+    codes, names = factorize_runs(out, sort=False)
+    bad = np.array([not isinstance(v, str) or v in ("", "nan") for v in names], dtype=bool)
+    missing = (codes < 0) | np.append(bad, True)[codes]
     out[missing] = bound.contract_column
     return out
 

@@ -140,7 +140,8 @@ def _parse(body: str | bytes, keep, path: str, dtype, numeric=(), sep: str = ","
         source = io.BytesIO(body) if isinstance(body, bytes) else io.StringIO(body)
         table = pd.read_csv(source, dtype=dtype, keep_default_na=False,
                             na_values={c: [""] for c in numeric}, sep=sep, decimal=decimal,
-                            skipinitialspace=True, skip_blank_lines=False)
+                            skipinitialspace=_initial_space(body),
+                            skip_blank_lines=False)
     except pd.errors.ParserError as exc:
         if "EOF inside string" in str(exc):
             raise InputError("a double quote is never closed", path,
@@ -165,6 +166,16 @@ def _parse(body: str | bytes, keep, path: str, dtype, numeric=(), sep: str = ","
         raise InputError("a quoted cell runs over a line break (every row must fit on one "
                          "line)", path, line)
     return table
+
+
+def _initial_space(body: str | bytes) -> bool:
+    """Whether a field may start with a blank: whether the body holds a blank at all
+    (one byte search; a pair like ', ' took 40 ms on a recovery file).
+
+    Without one, pandas' ``skipinitialspace`` changes nothing, and its parser is about a
+    third faster without it (a reel's recovery files: ~1 s, issue 18).
+    """
+    return not isinstance(body, bytes) or b" " in body or b"\t" in body
 
 
 def _check_header(columns, path: str, header_line: int) -> list[str]:

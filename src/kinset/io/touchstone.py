@@ -61,8 +61,101 @@ class Sweep:
         return int(self.s.shape[1])
 
 
+# The plain version 1 layout read_plain_touchstone takes itself: S parameters, one
+# reference resistance, one frequency point per line. Frequency multipliers as the
+# Touchstone specification defines them (version 1.1 and 2.0, section "Option line").
+_PLAIN_NAME = re.compile(r"\.s([12])p$", re.IGNORECASE)
+_FREQUENCY_UNITS = {"hz": 1.0, "khz": 1e3, "mhz": 1e6, "ghz": 1e9}
+_PLAIN_FORMATS = ("ri", "ma", "db")
+# Comment lines that carry data for scikit-rf (simulator port data, port names)
+_SPECIAL_COMMENTS = ("! gamma", "! port", "! terminal data", "! modal data")
+# Data lines of a plain file: the frequency and 2 numbers per S parameter on each line
+# (blank lines allowed), checked in one match over the whole data block.
+_ROWS = {rank: re.compile(r"(?:[ \t]*(?:\S+(?:[ \t]+\S+){%d}[ \t]*)?\n)*" % (2 * rank * rank))
+         for rank in (1, 2)}
+
+
+def _option_line(line: str) -> tuple[float, str, complex] | None:
+    """Frequency multiplier, number format and reference resistance of a plain S-parameter
+    option line (omitted fields take the specification's defaults: GHz S MA R 50)."""
+    toks = line.lower()[1:].partition("!")[0].split()
+    toks.extend(["ghz", "s", "ma", "r", "50"][len(toks):])
+    if len(toks) != 5 or toks[0] not in _FREQUENCY_UNITS or toks[1] != "s" \
+            or toks[2] not in _PLAIN_FORMATS or toks[3] != "r":
+        return None
+    try:
+        return _FREQUENCY_UNITS[toks[0]], toks[2], complex(toks[4])
+    except ValueError:
+        return None
+
+
+def _plain_header(lines: list[str]) -> tuple[tuple[float, str, complex], int] | None:
+    """The option line's fields and the index of the first data line (None: not plain)."""
+    option = None
+    for i, line in enumerate(lines):
+        line = line.strip()
+        if not line:
+            continue
+        if line[0] == "!":
+            if line.lower().startswith(_SPECIAL_COMMENTS):
+                return None
+        elif line[0] == "#":
+            option = option or _option_line(line)       # a second option line is ignored
+            if option is None:
+                return None
+        else:
+            return (option, i) if option is not None and line[0] != "[" else None
+    return None
+
+
+def read_plain_touchstone(path: str) -> Sweep | None:
+    """A one- or two-port version 1 S-parameter file read with numpy; None when the file
+    is anything else (version 2 keywords, Y/Z/G/H data, one resistance per port, data
+    wrapped over lines or with comments among it, simulator comments, frequencies not
+    increasing, numbers that are not finite), which :func:`read_touchstone` then leaves
+    to scikit-rf.
+
+    The numbers are those scikit-rf gives for the same file (its conversions of RI, MA
+    and DB pairs, its 21-before-12 order of version 1 two-ports): scikit-rf is the
+    reference in tests/test_touchstone.py. Parsing 3,003 small files through scikit-rf
+    was most of a 10,000-part reel's capacitance step (issue 18).
+    """
+    m = _PLAIN_NAME.search(path)
+    if m is None:
+        return None
+    try:
+        lines = Path(path).read_bytes().decode("utf-8").splitlines()
+    except (OSError, UnicodeDecodeError):
+        return None
+    head = _plain_header(lines)
+    rank = int(m.group(1))
+    width = 1 + 2 * rank * rank
+    data = "\n".join(lines[head[1]:]) + "\n" if head else "!"
+    if "!" in data or "#" in data or "[" in data or not _ROWS[rank].fullmatch(data):
+        return None
+    try:
+        values = np.array(data.split(), dtype=np.float64)
+    except ValueError:
+        return None
+    raw = values.reshape(-1, width)
+    f, raw = raw[:, 0].copy(), raw[:, 1:].copy()
+    if not np.isfinite(values).all() or np.any(np.diff(f) <= 0):
+        return None
+    mult, form, resistance = head[0]
+    if form == "db":
+        raw[:, 0::2] = 10 ** (raw[:, 0::2] / 20.0)
+    s = raw.view(np.complex128) if form == "ri" else \
+        raw[:, 0::2] * np.exp(1j * raw[:, 1::2] * np.pi / 180)
+    s = s.reshape(-1, rank, rank)
+    if rank == 2:        # version 1 two-ports list S11 S21 S12 S22
+        s = np.transpose(s, axes=(0, 2, 1))
+    return Sweep(path, f * mult, np.asarray(s, dtype=complex),
+                 np.full((len(f), rank), resistance, dtype=complex))
+
+
 def read_touchstone(path: str | Path) -> Sweep:
-    """Read a Touchstone file (version 1 or 2) through scikit-rf.
+    """Read a Touchstone file (version 1 or 2): the plain version 1 layout with
+    :func:`read_plain_touchstone`, anything else through scikit-rf.
 
     Raises
     ------
@@ -70,13 +163,15 @@ def read_touchstone(path: str | Path) -> Sweep:
         Naming the file when it is missing, does not parse, or holds no usable
         frequency points (non-finite numbers, frequencies not increasing).
     """
-    import skrf  # imported here: it is slow to import and only VNA data needs it
-
     path = str(path)
     if not Path(path).is_file():
         raise InputError("file not found", path)
     if Path(path).stat().st_size == 0:
         raise InputError("file is empty", path)
+    plain = read_plain_touchstone(path)
+    if plain is not None:
+        return plain
+    import skrf  # imported here: it is slow to import and only VNA data needs it
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
