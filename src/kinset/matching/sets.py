@@ -101,7 +101,7 @@ REPAIR_ROUNDS = 4
 REPAIR_MAX_DEVICES = 3_000
 """A region larger than this ends the repair (blossom time, as above)."""
 BLOCK_DEVICES = 2_000
-"""Such a component is first matched in blocks of this many devices (value order)."""
+"""Such a component is first matched in blocks of at most this many devices (median cuts)."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -203,10 +203,10 @@ def form_sets(values, weights, size, goal="most_sets", *,
 
     *Pairs, most sets, on a component of more than* ``BLOSSOM_MAX_DEVICES`` *devices*
     (the blossom algorithm's time grows about as :math:`n^{2.7}` here; a 100,000-part
-    pool): the devices, in their canonical value order, are cut into blocks of
-    ``BLOCK_DEVICES`` and each block is matched exactly; then blocks shifted by half
-    their length, and regions around the devices left single, are matched again where
-    that pairs more devices or as many for less cost. The bound is the floor of the
+    pool): the devices are cut at the median of the widest dimension, again and again,
+    into blocks of at most ``BLOCK_DEVICES``, and each block is matched exactly; then
+    blocks cut along the next widest dimension, and regions around the devices left
+    single, are matched again where that pairs more devices or as many for less cost. The bound is the floor of the
     fractional matching number :math:`\\nu_f` [6]_ (every matching is a fractional one;
     :math:`\\nu_f` is half a maximum matching of the bipartite double cover, found by
     Hopcroft-Karp), so the count is proven when it reaches it; the cost is not claimed
@@ -297,6 +297,25 @@ def _nearest_partners(pairs, cost, n, partners):
     keep = np.zeros(len(pairs), bool)
     keep[e[np.arange(len(a)) - first < partners]] = True
     return pairs[keep]
+
+
+def _blocks(v, size, turn):
+    """Block label of each device: halve at the median, along the dimension of widest
+    spread (``turn`` > 0: the next widest), until a block holds at most ``size``."""
+    label = np.zeros(len(v), np.int64)
+    todo, done = [np.arange(len(v))], 0
+    while todo:
+        idx = todo.pop()
+        if len(idx) <= size:
+            label[idx] = done
+            done += 1
+            continue
+        x = v[idx]
+        dims = np.argsort(x.max(axis=0) - x.min(axis=0), kind="stable")
+        dim = dims[-1 - min(turn, len(dims) - 1)]
+        half = idx[np.argsort(x[:, dim], kind="stable")]
+        todo += [half[len(half) // 2:], half[:len(half) // 2]]
+    return label
 
 
 def _rematch(vc, w, pairs, matched, group):
@@ -435,29 +454,29 @@ class _Run:
     # -- pairs, most sets, on a component too large for the blossom algorithm whole
     def _large_pairs(self, vc, w, comp, pairs, cost):
         n = len(comp)
-        block = np.arange(n) // BLOCK_DEVICES       # devices are in canonical (value) order
+        block = _blocks(vc, BLOCK_DEVICES, 0)
         same = block[pairs[:, 0]] == block[pairs[:, 1]]
         inner, inner_cost = pairs[same], cost[same]
         order = np.argsort(block[inner[:, 0]], kind="stable")
-        starts = np.searchsorted(block[inner[order, 0]], np.arange(block[-1] + 2))
+        starts = np.searchsorted(block[inner[order, 0]], np.arange(block.max() + 2))
         matched = [np.zeros((0, 2), np.int64)]
-        for b in range(block[-1] + 1):
+        loc = np.empty(n, np.int64)
+        for b in range(block.max() + 1):
             rows = order[starts[b]:starts[b + 1]]
-            first = b * BLOCK_DEVICES
-            size = min(BLOCK_DEVICES, n - first)
+            devs = np.flatnonzero(block == b)
+            loc[devs] = np.arange(len(devs))
             if len(rows):
-                found = blossom(size, inner[rows] - first, inner_cost[rows])
-                matched.append(np.asarray(found, np.int64).reshape(-1, 2) + first)
+                found = blossom(len(devs), loc[inner[rows]], inner_cost[rows])
+                matched.append(devs[np.asarray(found, np.int64).reshape(-1, 2)])
         count = fractional_matching_bound(n, pairs)
         matched = np.concatenate(matched)
-        shifted = (np.arange(n) + BLOCK_DEVICES // 2) // BLOCK_DEVICES
-        matched = _rematch(vc, w, pairs, matched, shifted)
+        matched = _rematch(vc, w, pairs, matched, _blocks(vc, BLOCK_DEVICES, 1))
         matched = _repair(vc, w, pairs, matched, count)
         self.add(comp, matched)
         self.bound += count
         self.cost_ok = False
-        self.note(f"blossom matching in blocks of {BLOCK_DEVICES} devices along the value "
-                  f"order, then re-matched around single devices, with the fractional "
+        self.note(f"blossom matching in blocks of up to {BLOCK_DEVICES} devices, then in "
+                  f"blocks cut the other way and around single devices, with the fractional "
                   f"matching bound", n)
 
     # -- one connected part of the candidate sets (most_sets, k >= 3)
