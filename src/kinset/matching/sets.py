@@ -98,8 +98,8 @@ about as n^2.7 here: 1.4 s CPU at 2,744 devices, 30-45 s at 9,000-9,800; hours a
 fractional matching number as the bound."""
 REPAIR_ROUNDS = 4
 """Rounds of re-matching regions around single devices after that (radius 1, 2, ...)."""
-REPAIR_MAX_DEVICES = 3_000
-"""A region larger than this ends the repair (blossom time, as above)."""
+REPAIR_MAX_DEVICES = 2_000
+"""Regions of that repair are cut into blocks of at most this many devices."""
 BLOCK_DEVICES = 2_000
 """Such a component is first matched in blocks of at most this many devices (median cuts)."""
 
@@ -319,8 +319,8 @@ def _blocks(v, size, turn):
 
 
 def _rematch(vc, w, pairs, matched, group):
-    """Blossom-match each group of devices again (pairs within the group, devices whose
-    partner is outside it left as they are); keep a group's new matching where it pairs
+    """Blossom-match each group of devices again (group -1: none; pairs within the group,
+    devices whose partner is outside it left as they are); keep a group's new matching where it pairs
     more devices, or as many for less cost."""
     n = len(vc)
     mate = np.full(n, -1)
@@ -328,7 +328,7 @@ def _rematch(vc, w, pairs, matched, group):
     free = (mate < 0) | (group[np.maximum(mate, 0)] == group)
     ok = free[pairs[:, 0]] & free[pairs[:, 1]] & (group[pairs[:, 0]] == group[pairs[:, 1]])
     gone, new = np.zeros(n, bool), []
-    for g in np.unique(group[free]):
+    for g in np.unique(group[free & (group >= 0)]):
         devs = np.flatnonzero(free & (group == g))
         if len(devs) > REPAIR_MAX_DEVICES:
             continue
@@ -350,11 +350,9 @@ def _rematch(vc, w, pairs, matched, group):
 def _repair(vc, w, pairs, matched, count, rounds=REPAIR_ROUNDS):
     """Re-match, by blossom, regions around the devices a matching leaves single.
 
-    A region is a connected part of: the single devices, every device within ``hops``
-    compatible pairs of them (one more each round) and those devices' partners, so
-    its pairs are whole. Where the blossom algorithm's matching of a region (at most
-    ``REPAIR_MAX_DEVICES``) pairs more devices, or as many for less cost, it replaces
-    the old one there: the matching only improves.
+    A region is the single devices and every device within ``hops`` compatible pairs of
+    them (one more each round), cut into blocks of at most ``REPAIR_MAX_DEVICES``
+    (:func:`_blocks`) and re-matched by :func:`_rematch`: the matching only improves.
     """
     n = len(vc)
     g = coo_matrix((np.ones(2 * len(pairs), np.int8),
@@ -363,25 +361,13 @@ def _repair(vc, w, pairs, matched, count, rounds=REPAIR_ROUNDS):
     for hops in range(1, 1 + rounds):
         if len(matched) >= count:
             break
-        mate = np.full(n, -1)
-        mate[matched[:, 0]], mate[matched[:, 1]] = matched[:, 1], matched[:, 0]
-        region = mate < 0
+        region = np.ones(n, bool)
+        region[matched.ravel()] = False
         for _ in range(hops):
             region = region | (g @ region > 0)
-        region[mate[region & (mate >= 0)]] = True
-        inside = pairs[region[pairs[:, 0]] & region[pairs[:, 1]]]
-        gone, new = np.zeros(n, bool), []
-        for devs, local in split_components(n, inside, 2):
-            if len(devs) > REPAIR_MAX_DEVICES:
-                continue
-            cost = np.abs(vc[devs[local[:, 0]]] - vc[devs[local[:, 1]]]) @ w
-            found = devs[np.asarray(blossom(len(devs), local, cost), np.int64).reshape(-1, 2)]
-            old = matched[np.isin(matched[:, 0], devs)]
-            if len(found) > len(old) or (len(found) == len(old) and set_cost(vc, w, found).sum()
-                                         < set_cost(vc, w, old).sum()):
-                gone[devs] = True
-                new.append(found)
-        matched = np.concatenate([matched[~gone[matched[:, 0]]]] + new)
+        group = np.full(n, -1)
+        group[region] = _blocks(vc[region], REPAIR_MAX_DEVICES, hops - 1)
+        matched = _rematch(vc, w, pairs, matched, group)
     return matched
 
 
