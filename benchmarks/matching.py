@@ -11,8 +11,10 @@ degrees across the reel then runs from none at the fringes to ~10x in the core).
 For each reel and set size it times ``form_sets(goal="most_sets")`` and prints the sets
 formed, the proven upper bound, the share of the bound reached, whether the count is
 proven optimal, and what sorting by the first criterion and grouping neighbours that
-fit (by hand) forms. Targets: pairs exact at 10,000 parts within 60 s; quads within
-2 % of the bound within 300 s (on 2 cores).
+fit (by hand) forms. Targets: pairs exact at 10,000 parts within 60 s (within 0.1 % of
+the proven bound where a component exceeds ``BLOSSOM_MAX_DEVICES``: a 100,000-part pool);
+quads within 2 % of the bound within 300 s (on 2 cores). CPU seconds are printed beside
+the wall time (the machine is shared).
 """
 
 from __future__ import annotations
@@ -25,7 +27,7 @@ from scipy.spatial import cKDTree
 
 from kinset.matching.graph import compatibility
 from kinset.matching.heuristics import sort_and_group
-from kinset.matching.sets import form_sets
+from kinset.matching.sets import BLOSSOM_MAX_DEVICES, form_sets
 
 CRITERIA = 7
 
@@ -60,20 +62,23 @@ def main() -> None:
         values = generated_reel(parts, args.degree, args.seed)
         nbrs = 2 * len(compatibility(values)) / parts
         for size in args.sizes:
-            t0 = time.perf_counter()
+            t0, c0 = time.perf_counter(), time.process_time()
             result = form_sets(values, np.ones(CRITERIA), size)
-            took = time.perf_counter() - t0
+            took, cpu = time.perf_counter() - t0, time.process_time() - c0
             by_hand = len(sort_and_group(values, size, key=0))
             share = result.count / result.upper_bound if result.upper_bound else 1.0
-            if size == 2:
+            if size == 2 and parts > BLOSSOM_MAX_DEVICES:
+                met = share >= 0.999
+                target = "within 0.1 % of bound"
+            elif size == 2:
                 met = result.optimal and took <= 60.0
                 target = "exact within 60 s"
             else:
                 met = share >= 0.98 and took <= 300.0
                 target = "within 2 % of bound within 300 s"
             rows.append((f"{parts:>6} {size:>3} {nbrs:>5.1f} {took:>7.1f} {result.count:>6} "
-                         f"{result.upper_bound:>6} {100 * share:>7.1f}% {str(result.optimal):>7} "
-                         f"{by_hand:>7}  {target}: {'met' if met else 'NOT met'}",
+                         f"{result.upper_bound:>6} {100 * share:>7.2f}% {str(result.optimal):>7} "
+                         f"{by_hand:>7}  {target}: {'met' if met else 'NOT met'} ({cpu:.1f} s CPU)",
                          result.method))
             print(rows[-1][0], flush=True)
     print()

@@ -14,6 +14,7 @@ References
 .. [2] Galil 1986, doi:10.1145/6462.6502
 .. [3] Padberg 1973, doi:10.1007/BF01580121
 .. [4] Huangfu and Hall 2018, doi:10.1007/s12532-017-0130-5
+.. [6] Schrijver 2003, *Combinatorial Optimization*, ch. 30 (fractional matchings)
 """
 
 from __future__ import annotations
@@ -25,7 +26,8 @@ import sys
 import numpy as np
 import rustworkx as rx
 from scipy.optimize import Bounds, LinearConstraint, milp
-from scipy.sparse import coo_matrix, csc_matrix
+from scipy.sparse import coo_matrix, csc_matrix, csr_matrix
+from scipy.sparse.csgraph import maximum_bipartite_matching
 
 EXACT_NODE_LIMIT = 5_000
 """Branch-and-bound nodes of HiGHS for a count-maximising packing."""
@@ -55,6 +57,25 @@ def blossom(n, pairs, cost):
     g.add_edges_from(list(zip(pairs[:, 0].tolist(), pairs[:, 1].tolist(), weight.tolist())))
     matched = rx.max_weight_matching(g, max_cardinality=True, weight_fn=int)
     return sorted((min(a, b), max(a, b)) for a, b in matched)
+
+
+def fractional_matching_bound(n, pairs):
+    """floor(nu_f): the fractional matching number, an upper bound on any matching's size.
+
+    Every matching is a fractional matching (x(delta(v)) <= 1, x >= 0), so the matching
+    number is at most nu_f, and, being an integer, at most floor(nu_f). nu_f is half the
+    maximum matching of the bipartite double cover (v and v' for each device, edges
+    a-b' and b-a' for each pair) [6]_: a fractional matching x gives the double cover the
+    fractional matching x on both copies, and a double-cover matching m gives
+    x_ab = (m_ab' + m_ba') / 2. Hopcroft-Karp (scipy) finds it in O(m sqrt(n)).
+    """
+    if len(pairs) == 0:
+        return 0
+    a = np.concatenate([pairs[:, 0], pairs[:, 1]])
+    b = np.concatenate([pairs[:, 1], pairs[:, 0]])
+    cover = csr_matrix((np.ones(len(a), np.int8), (a, b)), shape=(n, n))
+    matched = int(np.count_nonzero(maximum_bipartite_matching(cover, perm_type="column") >= 0))
+    return matched // 2                 # nu_f = matched / 2
 
 
 def milp_pack(P, n, cost=None, count=None, node_limit=EXACT_NODE_LIMIT):
