@@ -214,6 +214,15 @@ def form_sets(values, weights, size, goal="most_sets", *,
     When a dense component has more than ``candidate_limit`` valid sets, only sets
     among each device's nearest partners are considered; the result is then a
     heuristic and its bound the component's size divided by ``size``.
+
+    *Dense reels* (more than ``DENSE_MEAN_PARTNERS`` compatible partners per device on
+    average) are matched among each device's ``DENSE_KEEP`` nearest partners. Sets of
+    three or more are then started by the least-degree greedy, without the linear
+    relaxation (its bound would hold only for the thinned graph), and searched locally
+    as above. The bound is the number of devices some packing could use, divided by
+    ``size``: the devices placed in a set, and of the others those that belong to a
+    valid set of the whole compatibility graph (a clique of ``size - 1`` among their
+    compatible devices); for pairs, the devices with a partner.
     """
     v, w, k = check_inputs(values, weights, size)
     if goal not in GOALS:
