@@ -375,6 +375,36 @@ def test_dense_reel_matched_among_nearest_partners_reaches_networkx_count():
     assert len(q.sets) <= q.upper_bound <= len(v) // 4
 
 
+@pytest.mark.parametrize("seed", [1, 2])
+def test_dense_path_bound_is_never_below_the_milp_optimum(monkeypatch, seed):
+    # Reference: scipy.optimize.milp (HiGHS) on every valid quad of the *full* reel, found
+    # by brute force. The dense path is forced on a small reel (its thresholds lowered),
+    # so it sees only 3 nearest partners; its bound counts the devices in some valid quad.
+    import kinset.matching.sets as sets_module
+    monkeypatch.setattr(sets_module, "DENSE_MEAN_PARTNERS", 2)
+    monkeypatch.setattr(sets_module, "DENSE_KEEP", 3)
+    rng = np.random.default_rng(seed)
+    v = np.vstack([rng.normal(0.0, 1.0, (36, 2)), rng.uniform(3.5, 9.0, (6, 2))])
+    r = form_sets(v, np.ones(2), 4)
+    check_valid(v, r, len(v))
+    assert "nearest compatible partners" in r.method and "belong to some valid set" in r.method
+    best = milp_optimum(v, 4)
+    assert len(r.sets) <= best <= r.upper_bound
+    in_a_quad = np.unique(valid_sets_bruteforce(v, 4).ravel())
+    assert r.upper_bound == max(len(r.sets), len(in_a_quad) // 4)
+
+
+def test_in_some_set_agrees_with_brute_force():
+    # Reference: itertools brute force over every k-subset of each device's partners.
+    from scipy.spatial import cKDTree
+    from kinset.matching.graph import in_some_set
+    v = clustered_reel(60, 6, degree=4.0)
+    for k in (2, 3, 4):
+        members = np.unique(valid_sets_bruteforce(v, k).ravel())
+        got = in_some_set(v, cKDTree(v), np.arange(len(v)), k, first=3)
+        assert np.flatnonzero(got).tolist() == members.tolist()
+
+
 def test_degenerate_inputs():
     assert form_sets(np.zeros((0, 2)), [1, 1], 2).sets == []
     r = form_sets(np.array([[0.0], [5.0], [10.0]]), [1.0], 2)

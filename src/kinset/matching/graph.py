@@ -108,6 +108,39 @@ def nearest_compatible(v, tree, keep):
     return p.astype(np.int64).reshape(-1, 2)
 
 
+def in_some_set(v, tree, devices, k, cap=200_000, first=32):
+    """Whether each of ``devices`` belongs to some valid set of ``k`` devices of ``v``.
+
+    A device does exactly when ``k - 1`` of its compatible devices (Chebyshev distance
+    at most ``1 + EPSILON``, from ``tree``, a k-d tree of ``v``) are pairwise compatible:
+    such a clique is sought among its ``first`` nearest partners, then among all of them.
+    When the cliques cannot be listed within ``cap`` the answer is True: unproven, and
+    counted as belonging, so that a bound made from these answers stays a bound.
+    """
+    out = np.zeros(len(devices), bool)
+    for i, u in enumerate(np.asarray(devices, np.int64).tolist()):
+        for limit in (first, None):
+            if limit is None:
+                near = np.asarray(tree.query_ball_point(v[u], r=1.0 + EPSILON, p=np.inf), np.int64)
+            else:
+                _, near = tree.query(v[u], k=min(limit + 1, len(v)), p=np.inf,
+                                     distance_upper_bound=1.0 + EPSILON)
+                near = np.atleast_1d(near)
+                near = near[near < len(v)]
+            whole = limit is None or len(near) <= limit
+            near = near[near != u]
+            if len(near) < k - 1:
+                break
+            found = True if k == 2 else enumerate_sets(
+                v[near], compatibility(v[near]), k - 1, np.zeros(v.shape[1]), cap)
+            if found is None or found is True or len(found[0]):
+                out[i] = True
+                break
+            if whole:
+                break
+    return out
+
+
 def component_labels(n, i, j):
     """Connected-component label of each of ``n`` nodes joined by edges (i, j)."""
     g = coo_matrix((np.ones(len(i), np.int8), (i, j)), shape=(n, n))

@@ -38,6 +38,7 @@ LNS_MAX_PASSES = 1
 """Local-search passes: on 10,000 parts, started from the relaxation's sets above 1/2,
 one pass added 34 sets in 76 s and a second (revisiting what changed) none in 78 s."""
 LNS_REDUCED_COST = 0.25
+GREEDY_BLOCK = 2_048
 LNS_MIN_COVERAGE = 0.05
 
 
@@ -80,14 +81,20 @@ def by_cost(P, cost):
 
 
 def greedy(P, order, n):
-    """Take candidates in ``order`` whenever all their members are still free."""
+    """Take candidates in ``order`` whenever all their members are still free.
+
+    Candidates are screened a block at a time, so the loop only visits those still
+    alive when their block starts (on 2.2 million quads, 20 s became ~1 s)."""
     free = np.ones(n, bool)
     chosen = []
-    for s in order:
-        mem = P[s]
-        if free[mem].all():
-            free[mem] = False
-            chosen.append(s)
+    order = np.asarray(order, np.int64)
+    for a in range(0, len(order), GREEDY_BLOCK):
+        block = order[a:a + GREEDY_BLOCK]
+        for s in block[free[P[block]].all(axis=1)].tolist():
+            mem = P[s]
+            if free[mem].all():
+                free[mem] = False
+                chosen.append(s)
     return np.asarray(chosen, np.int64)
 
 
@@ -141,9 +148,13 @@ def _incidence(P, n):
 def pack_large(v, P, cost, n, k, start, bound, certify=True):
     """Relaxation rounding, least-degree greedy and local exact re-packing.
 
-    Returns the sets (rows of member indices) and the proven upper bound.
+    Returns the sets (rows of member indices) and the proven upper bound. Without
+    ``certify`` (the caller proves its bound another way) the relaxation is not solved:
+    on a dense 10,000-part reel (2.2 million candidate quads) its two solves took 17 min
+    and its rounding started the search 2 sets above the least-degree greedy (2,430 vs
+    2,428 quads, benchmarks/scan.py), which takes 4 s.
     """
-    x, reduced, lp_bound = lp_relaxation(P, n)
+    x, reduced, lp_bound = lp_relaxation(P, n) if certify else (None, None, None)
     if certify and lp_bound is not None:
         bound = min(bound, lp_bound)
     m = len(P)
