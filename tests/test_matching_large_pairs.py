@@ -106,3 +106,43 @@ def test_large_component_path_against_networkx(monkeypatch):
     exact = form_sets(v, w, 2)
     assert exact.count == best and exact.cost_optimal
     assert exact.total_cost <= r.total_cost + 1e-9
+
+
+def dense_reference(v):
+    """Reference for a dense reel: networkx's maximum matching of the whole compatibility
+    graph (brute-force Chebyshev distances), and the mean number of partners."""
+    cheb = np.abs(v[:, None, :] - v[None, :, :]).max(axis=2)
+    i, j = np.nonzero(np.triu(cheb <= 1 + 1e-12, 1))
+    g = nx.Graph()
+    g.add_edges_from(zip(i.tolist(), j.tolist()))
+    return len(nx.max_weight_matching(g, maxcardinality=True)), 2 * len(i) / len(v)
+
+
+@pytest.mark.parametrize("blocks", [40, 10])
+def test_dense_reel_pairs_in_blocks_reach_the_whole_graphs_matching(monkeypatch, blocks):
+    # A dense reel (every device has many partners) is thinned to nearest partners and,
+    # from BLOCK_DEVICES devices on, paired in blocks. Reference: networkx's maximum
+    # matching of the whole compatibility graph.
+    v = geometric_reel(240, 7, 1.5)
+    best, mean = dense_reference(v)
+    monkeypatch.setattr(sets_module, "DENSE_MEAN_PARTNERS", mean / 2)
+    monkeypatch.setattr(sets_module, "BLOCK_DEVICES", blocks)
+    r = form_sets(v, np.array([1.0, 0.5, 0.25]), 2)
+    members = np.concatenate(r.sets)
+    assert len(np.unique(members)) == len(members)
+    assert "dense reel" in r.method and f"blocks of up to {blocks} devices" in r.method
+    assert r.count == best == r.upper_bound and r.optimal and not r.cost_optimal
+
+
+def test_dense_reel_blocks_that_fall_short_give_way_to_the_whole_blossom(monkeypatch):
+    # Blocks that leave a pair unformed (the repair made to drop one) must not lower the
+    # count: the whole thinned graph goes to the blossom algorithm. Reference: networkx.
+    v = geometric_reel(240, 7, 1.5)
+    best, mean = dense_reference(v)
+    monkeypatch.setattr(sets_module, "DENSE_MEAN_PARTNERS", mean / 2)
+    monkeypatch.setattr(sets_module, "BLOCK_DEVICES", 40)
+    repair = sets_module._repair
+    monkeypatch.setattr(sets_module, "_repair", lambda *a: repair(*a)[1:])
+    r = form_sets(v, np.array([1.0, 0.5, 0.25]), 2)
+    assert r.method.startswith("blossom matching (1 part")
+    assert r.count == best == r.upper_bound

@@ -207,7 +207,14 @@ def form_sets(values, weights, size, goal="most_sets", *,
     pool): the devices are cut at the median of the widest dimension, again and again,
     into blocks of at most ``BLOCK_DEVICES``, and each block is matched exactly; then
     blocks cut along the next widest dimension, and regions around the devices left
-    single, are matched again where that pairs more devices or as many for less cost. The bound is the floor of the
+    single, are matched again where that pairs more devices or as many for less cost;
+    then the cost is lowered by exchanges between neighbouring pairs
+    (:mod:`~kinset.matching.polish`). A dense reel (thinned to each device's
+    ``DENSE_KEEP`` nearest partners, where the cost is not claimed optimal anyway)
+    takes this path from ``BLOCK_DEVICES`` devices on, and falls back to the whole
+    blossom when the blocks pair fewer devices than the bound allows (measured on the
+    10,000-part demo reel: 4,895 of 4,895 pairs in 3.6 s CPU against 41 s for the
+    blossom, cost 244.06 against its 243.47 on the thinned graph). The bound is the floor of the
     fractional matching number :math:`\\nu_f` [6]_ (every matching is a fractional one;
     :math:`\\nu_f` is half a maximum matching of the bipartite double cover, found by
     Hopcroft-Karp), so the count is proven when it reaches it; the cost is not claimed
@@ -264,10 +271,13 @@ def form_sets(values, weights, size, goal="most_sets", *,
     run = _Run(k, goal)
     if n >= k:
         tree = cKDTree(vc)
-        partners = tree.query_ball_point(vc, r=1.0 + EPSILON, p=np.inf, return_length=True) - 1
-        if partners.mean() > DENSE_MEAN_PARTNERS:
+        # the mean number of compatible partners from a dual-tree pair count (the same
+        # pairs a ball query per device would list, without visiting each one)
+        mean = (float(tree.count_neighbors(tree, 1.0 + EPSILON, p=np.inf)) - n) / n
+        if mean > DENSE_MEAN_PARTNERS:
             pairs = nearest_compatible(vc, tree, DENSE_KEEP)
-            run.dense = (partners > 0, float(partners.mean()), vc, tree)
+            second = tree.query(vc, k=2, p=np.inf)[0][:, 1]
+            run.dense = (second <= 1.0 + EPSILON, mean, vc, tree)
         else:
             pairs = compatibility(vc)
         for comp, local_pairs in split_components(n, pairs, k):
@@ -412,7 +422,7 @@ class _Run:
                 self.bound += n // 2
                 self.cost_ok = False
                 self.note("greedy by cost over all compatible pairs", n)
-            elif n > BLOSSOM_MAX_DEVICES:
+            elif n > BLOSSOM_MAX_DEVICES or (self.dense is not None and n > BLOCK_DEVICES):
                 self._large_pairs(vc, w, comp, pairs, cost)
             else:
                 matched = blossom(n, pairs, cost)
@@ -468,11 +478,20 @@ class _Run:
         matched = np.concatenate(matched)
         matched = _rematch(vc, w, pairs, matched, _blocks(vc, BLOCK_DEVICES, 1))
         matched = _repair(vc, w, pairs, matched, count)
-        self.add(comp, matched)
+        if len(matched) < count and n <= BLOSSOM_MAX_DEVICES:
+            # a thinned dense reel whose blocks fall short: the whole blossom, exact count
+            matched = blossom(n, pairs, cost)
+            self.add(comp, matched)
+            self.bound += len(matched)
+            self.cost_ok = False
+            self.note("blossom matching", n)
+            return
+        self.add(comp, polish(vc, w, matched))
         self.bound += count
         self.cost_ok = False
         self.note(f"blossom matching in blocks of up to {BLOCK_DEVICES} devices, then in "
-                  f"blocks cut the other way and around single devices, with the fractional "
+                  f"blocks cut the other way and around single devices, exchanges between "
+                  f"neighbouring pairs, with the fractional "
                   f"matching bound", n)
 
     # -- one connected part of the candidate sets (most_sets, k >= 3)
