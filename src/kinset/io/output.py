@@ -7,10 +7,15 @@ import os
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import IO
+from typing import IO, TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
+
+if TYPE_CHECKING:
+    import pandas as pd
+# pandas is imported where a table is written or read, not at import: the workflow's
+# Snakefile imports this module (through the ledger) on every run, a no-op rerun too,
+# and pandas is most of that start-up (issue 18).
 
 
 @contextmanager
@@ -90,6 +95,7 @@ def _distinct_text(values: np.ndarray, fmt) -> list[str] | None:
     missing one); None when the column is short or its values mostly differ."""
     if len(values) < _DISTINCT_FROM:
         return None
+    import pandas as pd
     codes, distinct = pd.factorize(values)
     if len(distinct) * 4 > len(values):
         return None
@@ -99,6 +105,7 @@ def _distinct_text(values: np.ndarray, fmt) -> list[str] | None:
 
 def _text(column: pd.Series) -> list[str]:
     """A column's cells as pandas' ``to_csv(float_format="%.10g")`` writes them."""
+    import pandas as pd
     v = column.to_numpy()
     if v.dtype.kind == "f":
         # factorize counts 0.0 and -0.0 as one value, which print differently
@@ -125,5 +132,6 @@ def _text(column: pd.Series) -> list[str]:
 
 def read_result(path: str | Path) -> pd.DataFrame:
     """Read a result table written by :func:`write_csv` (device ids stay text)."""
+    import pandas as pd
     return pd.read_csv(path, dtype={"device": str, "status": str, "note": str},
                        keep_default_na=False, na_values=[""])
