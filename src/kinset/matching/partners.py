@@ -384,7 +384,8 @@ def partner_table(tables: dict[str, pd.DataFrame], devices: list[str], profile: 
         unknown = [a for a in available if a not in reasons]
         if unknown:
             raise InputError(f"available parts {unknown} are in no extraction table")
-        mask = np.isin(c.devices, list(available))
+        wanted = set(available)      # a set lookup: numpy's isin on text compares every pair
+        mask = np.fromiter((d in wanted for d in c.devices), bool, count=len(c.devices))
     dims = profile.dimensions
     p = best_partners(c.z, [d.weight for d in dims], [row[m] for m in members], top=top,
                       size=size, available=mask, within_only=within_only)
