@@ -144,5 +144,5 @@ def test_dense_reel_blocks_that_fall_short_give_way_to_the_whole_blossom(monkeyp
     repair = sets_module._repair
     monkeypatch.setattr(sets_module, "_repair", lambda *a: repair(*a)[1:])
     r = form_sets(v, np.array([1.0, 0.5, 0.25]), 2)
-    assert r.method.startswith("blossom matching (1 part")
+    assert r.method.startswith("exact: blossom matching (1 part")
     assert r.count == best == r.upper_bound

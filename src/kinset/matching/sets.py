@@ -422,10 +422,10 @@ class _Run:
                 self.bound += n // 2
                 self.cost_ok = False
                 self.note("greedy by cost over all compatible pairs", n)
-            elif n > BLOSSOM_MAX_DEVICES or (self.dense is not None and n > BLOCK_DEVICES):
-                self._large_pairs(vc, w, comp, pairs, cost)
-            else:
-                matched = blossom(n, pairs, cost)
+                return
+            large = n > BLOSSOM_MAX_DEVICES or (self.dense is not None and n > BLOCK_DEVICES)
+            if not (large and self._large_pairs(vc, w, comp, pairs, cost)):
+                matched = blossom(n, pairs, cost)   # also where the blocks fell short
                 self.add(comp, matched)
                 self.bound += len(matched)
                 self.note("exact: blossom matching", n)
@@ -459,6 +459,8 @@ class _Run:
 
     # -- pairs, most sets, on a component too large for the blossom algorithm whole
     def _large_pairs(self, vc, w, comp, pairs, cost):
+        """Pairs in blocks; False (nothing added) when they fall short of the bound on a
+        component the whole blossom can still take."""
         n = len(comp)
         block = _blocks(vc, BLOCK_DEVICES, 0)
         same = block[pairs[:, 0]] == block[pairs[:, 1]]
@@ -479,13 +481,7 @@ class _Run:
         matched = _rematch(vc, w, pairs, matched, _blocks(vc, BLOCK_DEVICES, 1))
         matched = _repair(vc, w, pairs, matched, count)
         if len(matched) < count and n <= BLOSSOM_MAX_DEVICES:
-            # a thinned dense reel whose blocks fall short: the whole blossom, exact count
-            matched = blossom(n, pairs, cost)
-            self.add(comp, matched)
-            self.bound += len(matched)
-            self.cost_ok = False
-            self.note("blossom matching", n)
-            return
+            return False                # the whole blossom is affordable: exact count
         self.add(comp, polish(vc, w, matched))
         self.bound += count
         self.cost_ok = False
@@ -493,6 +489,7 @@ class _Run:
                   f"blocks cut the other way and around single devices, exchanges between "
                   f"neighbouring pairs, with the fractional "
                   f"matching bound", n)
+        return True
 
     # -- one connected part of the candidate sets (most_sets, k >= 3)
     def _pack(self, v, w, devs, P, cost, exact_limit):
