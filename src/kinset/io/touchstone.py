@@ -128,9 +128,11 @@ def read_plain_touchstone(path: str) -> Sweep | None:
     except (OSError, UnicodeDecodeError):
         return None
     head = _plain_header(lines)
+    if head is None:
+        return None
     rank = int(m.group(1))
     width = 1 + 2 * rank * rank
-    data = "\n".join(lines[head[1]:]) + "\n" if head else "!"
+    data = "\n".join(lines[head[1]:]) + "\n"
     if "!" in data or "#" in data or "[" in data or not _ROWS[rank].fullmatch(data):
         return None
     try:
