@@ -9,7 +9,7 @@ from snakemake.utils import min_version
 
 from kinset.errors import InputError
 from kinset.registry import NAMES
-from kinset.workflow import BUCKET_PATTERN, check_config, make_plans, stopped
+from kinset.workflow import BUCKET_PATTERN, check_config, make_plans, stopped, when_nothing_to_do
 
 min_version("8.0")
 
@@ -56,6 +56,9 @@ rule all:
 # log is also printed where it failed: show-failed-logs in profiles/default).
 onsuccess:
     print("\n".join(PLAN.summary()), file=sys.stderr)
+
+# A rerun with nothing to do skips onsuccess; it ends on the same words.
+when_nothing_to_do(lambda: print("\n".join(PLAN.summary()), file=sys.stderr))
 
 onerror:
     print(stopped(log), file=sys.stderr)

@@ -19,6 +19,8 @@ from scipy import constants, stats
 
 from kinset.circuit.kinds import Circuit, ring_mixer
 from kinset.circuit.run import INSTALL_NOTE, median_part, plan
+from kinset.circuit.summary import CircuitResult, summary_line, written
+from kinset.circuit.words import figure_value
 from kinset.circuit.kinds import sampling_bridge
 from kinset.cli import main
 from kinset.demo import write_demo
@@ -152,6 +154,10 @@ def test_without_ngspice_every_set_gets_the_install_note_and_the_step_succeeds(
     assert sorted(table["set"]) == sorted(sets["set"].unique()) and len(table)
     assert table["lo_if_isolation_dB"].isna().all()
     assert (table["note"] == INSTALL_NOTE).all()
+    # read back for the workflow's last words: none simulated, and the note says why
+    back = written(out / "circuit.csv", load_profile(SHIPPED).circuit)
+    assert summary_line(back) == (f"circuit (ring_mixer): 0 of {len(table)} sets simulated; "
+                                  f"0 sets miss a limit; {INSTALL_NOTE}")
 
 
 @requires_ngspice
@@ -206,6 +212,16 @@ def test_a_missed_limit_is_flagged_in_circuit_csv_sets_csv_and_the_report(matche
                  "-o", str(out)]) == 0
     page = (out / "report.html").read_text(encoding="utf-8")
     assert f"Sets that miss a limit: {len(table)}</h3>" in page
+    # The workflow's last words read circuit.csv back without pandas: the same line as
+    # the table pandas reads, its median numpy's nanmedian.
+    spec = load_profile(profile).circuit
+    back = written(out / "circuit.csv", spec)
+    line = summary_line(back)
+    assert line == summary_line(CircuitResult(back.path, table, spec.kind,
+                                              dict(ring_mixer.FIGURES), ""))
+    assert f"{len(table)} of {len(table)} sets simulated" in line
+    assert f"; {len(table)} sets miss a limit" in line
+    assert figure_value(np.nanmedian(table["lo_if_isolation_dB"]), "lo_if_isolation_dB") in line
 
 
 def test_a_card_without_what_the_circuit_needs_gives_a_note_not_a_figure():

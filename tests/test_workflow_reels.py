@@ -111,6 +111,20 @@ def test_the_default_is_every_demo_reel_folder_present(reels, tmp_path):
     assert of_reel(planned(work), results, "demo-0412") == set()
 
 
+def last_words(stderr: str, results: Path) -> list[str]:
+    """The result block at the end of a run: each reel's ``kinset: <results>/<reel>/``
+    line and the indented application and circuit lines under it."""
+    words, inside = [], False
+    for line in stderr.splitlines():
+        if line.startswith(f"kinset: {results}"):
+            inside = True
+        elif not line.startswith("  "):
+            inside = False
+        if inside:
+            words.append(line)
+    return words
+
+
 def test_two_reels_run_into_their_own_results_and_rerun_nothing(reels, tmp_path):
     a, b = reels["demo-0412"], reels["demo-0007"]
     r = snakemake(tmp_path, reel=f"{a},{b}")
@@ -133,8 +147,14 @@ def test_two_reels_run_into_their_own_results_and_rerun_nothing(reels, tmp_path)
             has_circuit = "\ncircuit:" in (ROOT / "src" / "kinset" / "applications" /
                                            f"{app}.yaml").read_text(encoding="utf-8")
             assert sorted(circuit["set"]) == (sorted(sets) if has_circuit else []), app
-    # a no-op rerun: Snakemake plans nothing
+    # a no-op rerun: Snakemake plans nothing, and running it ends on the run's own last
+    # words (Snakemake skips its onsuccess hook when there is nothing to do)
     assert planned(tmp_path, reel=f"{a},{b}") == set()
+    words = last_words(r.stderr, tmp_path / "results")
+    assert len(words) == 2 * (1 + 2 * 2), words     # per reel: folder; per application 2 lines
+    again = snakemake(tmp_path, reel=f"{a},{b}")
+    assert again.returncode == 0 and "Nothing to be done" in again.stderr, again.stderr
+    assert last_words(again.stderr, tmp_path / "results") == words
     # new data in one reel reruns that reel's jobs only
     extra = a / "forward" / "zz_extra.csv"
     first = sorted((a / "forward").glob("*.csv"))[0]

@@ -81,7 +81,8 @@ def _progress(text: str) -> None:
 
 
 def _cmd_match(args) -> None:
-    from kinset.matching.run import run_match, summary_line
+    from kinset.matching.run import run_match
+    from kinset.matching.summary import summary_line
     from kinset.matching.scan import scan_line
     names = [a.strip() for a in args.application.split(",") if a.strip()]
     waive = tuple(q.strip() for q in (args.waive_screens or "").split(",") if q.strip())
@@ -166,7 +167,8 @@ def _cmd_report(args) -> None:
 
 
 def _cmd_circuit(args) -> None:
-    from kinset.circuit.run import run_circuit, summary_line
+    from kinset.circuit.run import run_circuit
+    from kinset.circuit.summary import summary_line
     result = run_circuit(args.results, args.application, args.output, args.threads,
                          args.models, progress=_progress)
     print(summary_line(result), file=sys.stderr)      # with the note (no ngspice, no circuit)

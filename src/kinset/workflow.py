@@ -158,11 +158,11 @@ class Plan:
 
     def summary(self) -> list[str]:
         """What a finished run made: the results folder, then each application's one-line
-        summary (:func:`kinset.matching.run.summary_line` of its ``summary.json``), for the
+        summary (:func:`kinset.matching.summary.summary_line` of its ``summary.json``), for the
         end of the terminal output. Applications not (yet) matched are left out; one whose
         summary is older than the reel's devices.csv or its profile (a run that asked for
         other targets) is marked out of date."""
-        from kinset.matching.run import summary_line
+        from kinset.matching.summary import summary_line
         lines = []
         for name, profile in self.applications.items():
             path = self.out / name / "summary.json"
@@ -179,8 +179,8 @@ class Plan:
         return [f"kinset: {self.out}/ (each application's report.html is in its folder):"] + lines
 
     def circuit_line(self, name: str) -> list[str]:
-        """The application's circuit step in one line (:mod:`kinset.circuit.run`), if any."""
-        from kinset.circuit.run import summary_line, written
+        """The application's circuit step in one line (:mod:`kinset.circuit.summary`), if any."""
+        from kinset.circuit.summary import summary_line, written
         profile = self.profiles.get(name)
         result = written(self.out / name / "circuit.csv", getattr(profile, "circuit", None))
         return [f"    {summary_line(result)}"] if result is not None else []
@@ -277,6 +277,28 @@ def stopped(logs) -> str:
     if not errors:
         return "kinset: the run stopped: the failed job's log is printed above"
     return "\n".join(["kinset: the run stopped:"] + [f"  {e}" for e in errors])
+
+
+def when_nothing_to_do(say) -> None:
+    """Call ``say()`` once if snakemake finds nothing to do. Such a run returns before its
+    ``onsuccess`` hook, so a rerun to see the results would otherwise end on snakemake's
+    own line alone. Watches snakemake's log for its nothing-to-be-done message; a version
+    without that message or logger simply never calls ``say``."""
+    import logging
+    try:
+        from snakemake.common import NOTHING_TO_BE_DONE_MSG
+    except ImportError:
+        return
+
+    class Watch(logging.Handler):
+        said = False
+
+        def emit(self, record):
+            if not self.said and record.getMessage() == NOTHING_TO_BE_DONE_MSG:
+                self.said = True
+                say()
+
+    logging.getLogger("snakemake.logging").addHandler(Watch(logging.INFO))
 
 
 # The demo reels a fresh clone runs when --config names no reel: the silicon switching

@@ -17,7 +17,6 @@ from __future__ import annotations
 import math
 import re
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
 
@@ -28,6 +27,7 @@ from kinset import __version__
 from kinset.circuit.kinds import Circuit, kind_module
 from kinset.circuit.kinds.common import card_values
 from kinset.circuit.ngspice import NgspiceError, find_ngspice, run_deck
+from kinset.circuit.summary import INSTALL_NOTE, CircuitResult
 from kinset.circuit.words import figure_label, figure_value
 from kinset.errors import InputError
 from kinset.io.output import read_result, write_csv, write_text
@@ -39,21 +39,7 @@ from kinset.io.output import read_result, write_csv, write_text
 #: 50 16.4 s, 100 19.4 s, 200 28.4 s.
 CHUNK = 50
 
-INSTALL_NOTE = ("ngspice is not on PATH, so no set was simulated: install it (Debian/Ubuntu: "
-                "apt-get install ngspice; with --sdm conda, envs/kinset.yaml lists it) and "
-                "rerun")
 LIMITS_COLUMN = "circuit_limits"
-
-
-@dataclass
-class CircuitResult:
-    """What one ``kinset circuit`` run wrote: ``circuit.csv``'s table and the words on it."""
-
-    path: Path
-    table: pd.DataFrame
-    kind: str = ""
-    figures: dict = field(default_factory=dict)
-    note: str = ""
 
 
 def median_part(members: list[str], values: pd.DataFrame, dimensions) -> str:
@@ -255,32 +241,3 @@ def run_circuit(results: str | Path, application: str, out: str | Path | None = 
     write_csv(table, path)
     flag_sets(folder / "sets.csv", read_result(folder / "sets.csv"), table)
     return CircuitResult(path, table, spec.kind, dict(module.FIGURES), note)
-
-
-def written(path: str | Path, spec) -> CircuitResult | None:
-    """A circuit.csv written earlier, as a result for :func:`summary_line` (None if absent
-    or the profile names no circuit)."""
-    path = Path(path)
-    if spec is None or not path.is_file():
-        return None
-    table = pd.read_csv(path, comment="#", keep_default_na=False, na_values=[""])
-    notes = table["note"].dropna().astype(str) if "note" in table else pd.Series([], dtype=str)
-    note = INSTALL_NOTE if len(notes) and (notes == INSTALL_NOTE).all() else ""
-    return CircuitResult(path, table, spec.kind, dict(kind_module(spec.kind).FIGURES), note)
-
-
-def summary_line(result: CircuitResult) -> str:
-    """One line: sets simulated, the first figure's median against the reference's, misses."""
-    t = result.table
-    if not result.figures:
-        return f"circuit: {result.note}"
-    first = next(iter(result.figures))
-    done = int(np.isfinite(t[first].to_numpy(dtype=float)).sum()) if len(t) else 0
-    text = f"circuit ({result.kind}): {done} of {len(t)} sets simulated"
-    if done:
-        module = kind_module(result.kind)
-        text += (f"; median {figure_label(module, first)} "
-                 f"{figure_value(np.nanmedian(t[first]), first)} (ideally matched: "
-                 f"{figure_value(np.nanmedian(t['reference_' + first]), first)})")
-    missed = int((t["limits"].notna() & (t["limits"].astype(str) != "")).sum()) if len(t) else 0
-    return text + f"; {missed} sets miss a limit" + (f"; {result.note}" if result.note else "")

@@ -414,18 +414,6 @@ def _neighbour_counts(z: np.ndarray, rows: list[int]) -> list[int]:
     return [len(h) - 1 for h in hits]
 
 
-def summary_line(summary: dict) -> str:
-    left = ", ".join(f"{n} at {stage}" for stage, n in summary["parts_left"].items()) or "none"
-    kept = summary.get("kept_sets", 0)
-    check = summary.get("kept_sets_to_check") or []
-    kept_text = (f"{kept} kept ({len(check)} to check: set {', '.join(map(str, check))}) + "
-                 if check else f"{kept} kept + ") if kept else ""
-    new = summary.get("new_sets", summary["sets"])
-    return (f"{summary['application']}: {kept_text}{new} new sets of {summary['set_size']} "
-            f"(new: at most {summary['upper_bound']} possible; {summary['method']}), "
-            f"{summary['parts_used']} of {summary['parts_seen']} parts used; left: {left}")
-
-
 def write_match(result: MatchResult, folder: str | Path, positions: dict | None = None) -> None:
     """sets.csv, unmatched.csv, values.csv, summary.json (and tolerance_scan.csv when the
     match was scanned) in ``folder``."""
