@@ -17,6 +17,11 @@ def bucket_inputs(wildcards):
     return PLAN.of(wildcards).bucket_files(wildcards.dataset, wildcards.bucket)
 
 
+def parse_memory(wildcards):
+    """A parse job's declared memory, by the size of its files (kinset.workflow.MEMORY_PER_MB)."""
+    return PLAN.of(wildcards).parse_memory_mb(wildcards.dataset, wildcards.bucket)
+
+
 def application_profile(wildcards):
     return PLAN.of(wildcards).profile(wildcards.application)
 

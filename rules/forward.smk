@@ -19,7 +19,7 @@ rule extract_forward:
         settings=PLAN.settings_digest("forward"),
     threads: 1
     resources:
-        mem_mb=2000,
+        mem_mb=PLAN.extract_memory_mb("forward"),
         runtime=20,
     conda:
         "../envs/kinset.yaml"

@@ -19,7 +19,7 @@ rule extract_leakage:
         settings=PLAN.settings_digest("leakage"),
     threads: 1
     resources:
-        mem_mb=2000,
+        mem_mb=PLAN.extract_memory_mb("leakage"),
         runtime=20,
     conda:
         "../envs/kinset.yaml"

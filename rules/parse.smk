@@ -14,7 +14,7 @@ rule parse:
         version=VERSION,
     threads: 1
     resources:
-        mem_mb=1000,
+        mem_mb=parse_memory,
         runtime=10,
     conda:
         "../envs/kinset.yaml"

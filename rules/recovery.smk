@@ -19,7 +19,7 @@ rule extract_recovery:
         settings=PLAN.settings_digest("recovery"),
     threads: 1
     resources:
-        mem_mb=2000,
+        mem_mb=PLAN.extract_memory_mb("recovery"),
         runtime=20,
     conda:
         "../envs/kinset.yaml"

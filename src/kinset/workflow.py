@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import re
 import shlex
 import sys
@@ -42,6 +43,28 @@ def bucket_of(name: str, n_files: int, max_jobs: int) -> str:
         return stem if SAFE_NAME.match(stem) and not stem.startswith("bucket-") else \
             f"file-{zlib.crc32(name.encode()):08x}"
     return f"bucket-{zlib.crc32(name.encode()) % max_jobs:04d}"
+
+
+#: A job's declared memory [MB] per MB of the raw files it handles (the ``mem_mb`` a
+#: cluster reserves). Measured on the 100,000-part demo reel (issue 18, ``/usr/bin/time -v``,
+#: MB of 10^6 bytes): parsing a 306 MB recovery bucket peaked at 2,387 MB (7.8 per MB);
+#: recovery extraction, which holds one parsed bucket at a time, at 2,424 MB for its
+#: largest bucket of 306 MB (7.9); forward extraction, which fits every reading at once,
+#: at 1,857 MB for 152 MB (12.2); leakage at 925 MB for 92 MB (10.0). About 15 % is
+#: added; a job never declares less than its rule's fixed floor (ample for small reels).
+MEMORY_PER_MB = {"parse": 9, "forward": 14, "leakage": 12, "recovery": 9}
+#: Datasets whose extraction holds one parsed bucket at a time, not the whole dataset.
+ONE_BUCKET_AT_A_TIME = ("recovery",)
+
+
+def _raw_mb(files) -> float:
+    total = 0
+    for f in files:
+        try:
+            total += os.path.getsize(f)
+        except OSError:         # gone since the plan was made: the job itself will say so
+            pass
+    return total / 1e6
 
 
 @dataclass
@@ -95,6 +118,17 @@ class Plan:
 
     def bucket_files(self, dataset: str, bucket: str) -> list[str]:
         return self.buckets[dataset][bucket]
+
+    def parse_memory_mb(self, dataset: str, bucket: str, floor: int = 1000) -> int:
+        """Memory to declare for parsing one bucket (:data:`MEMORY_PER_MB`)."""
+        return int(max(floor, MEMORY_PER_MB["parse"] * _raw_mb(self.buckets[dataset][bucket])))
+
+    def extract_memory_mb(self, dataset: str, floor: int = 2000) -> int:
+        """Memory to declare for a dataset's extraction: by the size of its raw files, all
+        of them or, for a step that streams its buckets, the largest bucket."""
+        sizes = [_raw_mb(files) for files in self.buckets.get(dataset, {}).values()]
+        size = max(sizes, default=0) if dataset in ONE_BUCKET_AT_A_TIME else sum(sizes)
+        return int(max(floor, MEMORY_PER_MB.get(dataset, 0) * size))
 
     def parsed(self, dataset: str) -> list[str]:
         return [str(self.out / "parsed" / dataset / f"{b}.npz")
