@@ -18,7 +18,7 @@ def bucket_inputs(wildcards):
 
 
 def parse_memory(wildcards):
-    """A parse job's declared memory, by the size of its files (kinset.workflow.MEMORY_PER_MB)."""
+    """A parse job's declared memory, by the size of its files (kinset.workflow.PARSE_MEMORY_PER_MB)."""
     return PLAN.of(wildcards).parse_memory_mb(wildcards.dataset, wildcards.bucket)
 
 

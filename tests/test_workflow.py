@@ -98,7 +98,7 @@ def test_declared_memory_grows_with_the_raw_files(tmp_path):
     """A cluster reserves what a job declares. Measured at 100,000 parts (issue 18), a
     306 MB recovery bucket took 2.4 GB to parse and forward extraction 1.86 GB for
     152 MB: a large file raises its parse job's and its extraction's mem_mb above the
-    rules' floors (kinset.workflow.MEMORY_PER_MB); small ones keep the floors."""
+    rules' floors (kinset.workflow.PARSE_MEMORY_PER_MB, the registry's memory_per_mb); small ones keep the floors."""
     make_reel(tmp_path / "reel")
     small = declared_memory(tmp_path)
     assert small["parse"] == [1000, 1000] and small["extract_forward"] == [2000]

@@ -29,7 +29,9 @@ class Dataset:
     ``<name>_<side>.csv`` (the forward readings, the capacitance points);
     ``settings_used`` are the reel.yaml keys its extraction reads (a rerun trigger);
     ``panel_columns`` the fitted columns the report draws for every part of the reel
-    (column, title, unit).
+    (column, title, unit); ``memory_per_mb`` the memory its extraction job declares per MB
+    of the dataset's raw files, or of its largest bucket when ``one_bucket_at_a_time``
+    (measured: :data:`kinset.workflow.PARSE_MEMORY_PER_MB`; 0 keeps the rule's floor).
     """
 
     name: str
@@ -40,6 +42,8 @@ class Dataset:
     settings_used: tuple[str, ...]
     side_tables: tuple[str, ...] = ()
     panel_columns: tuple[tuple[str, str, str], ...] = ()
+    memory_per_mb: float = 0.0
+    one_bucket_at_a_time: bool = False
 
     @property
     def tables(self) -> tuple[str, ...]:
@@ -65,18 +69,19 @@ DATASETS: tuple[Dataset, ...] = (
             "kinset.extract:extract_forward",
             ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
              "thermal_resistance_K_per_W", "self_heating", "accuracy"),
-            side_tables=("readings",)),
+            side_tables=("readings",), memory_per_mb=14),
     Dataset("leakage", "reverse leakage", "leak", "kinset.io.datasets:read_leakage",
             "kinset.extract:extract_leakage",
             ("reference_temperature_C", "ambient_temperature_C", "material", "eg_eV", "xti",
-             "accuracy", "leakage")),
+             "accuracy", "leakage"), memory_per_mb=12),
     Dataset("capacitance", "junction capacitance", "cv", "kinset.io.datasets:read_capacitance",
             "kinset.extract:extract_capacitance",
             ("reference_temperature_C", "ambient_temperature_C", "accuracy", "capacitance"),
             side_tables=("points",),
             panel_columns=(("cj0_F", "zero-bias capacitance CJO", "F"),)),
     Dataset("recovery", "reverse recovery", "rr", "kinset.io.datasets:read_recovery",
-            "kinset.extract:extract_recovery", ("recovery",)),
+            "kinset.extract:extract_recovery", ("recovery",), memory_per_mb=9,
+            one_bucket_at_a_time=True),
 )
 
 NAMES: tuple[str, ...] = tuple(d.name for d in DATASETS)

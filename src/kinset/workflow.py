@@ -46,15 +46,14 @@ def bucket_of(name: str, n_files: int, max_jobs: int) -> str:
 
 
 #: A job's declared memory [MB] per MB of the raw files it handles (the ``mem_mb`` a
-#: cluster reserves). Measured on the 100,000-part demo reel (issue 18, ``/usr/bin/time -v``,
-#: MB of 10^6 bytes): parsing a 306 MB recovery bucket peaked at 2,387 MB (7.8 per MB);
-#: recovery extraction, which holds one parsed bucket at a time, at 2,424 MB for its
-#: largest bucket of 306 MB (7.9); forward extraction, which fits every reading at once,
-#: at 1,857 MB for 152 MB (12.2); leakage at 925 MB for 92 MB (10.0). About 15 % is
-#: added; a job never declares less than its rule's fixed floor (ample for small reels).
-MEMORY_PER_MB = {"parse": 9, "forward": 14, "leakage": 12, "recovery": 9}
-#: Datasets whose extraction holds one parsed bucket at a time, not the whole dataset.
-ONE_BUCKET_AT_A_TIME = ("recovery",)
+#: cluster reserves): for parsing a bucket here, for each extraction in its registry
+#: record (``memory_per_mb``). Measured on the 100,000-part demo reel (issue 18,
+#: ``/usr/bin/time -v``, MB of 10^6 bytes): parsing a 306 MB recovery bucket peaked at
+#: 2,387 MB (7.8 per MB); recovery extraction, which holds one parsed bucket at a time,
+#: at 2,424 MB for its largest bucket of 306 MB (7.9); forward extraction, which fits
+#: every reading at once, at 1,857 MB for 152 MB (12.2); leakage at 925 MB for 92 MB
+#: (10.0). About 15 % is added; a job never declares less than its rule's fixed floor.
+PARSE_MEMORY_PER_MB = 9
 
 
 def _raw_mb(files) -> float:
@@ -120,15 +119,16 @@ class Plan:
         return self.buckets[dataset][bucket]
 
     def parse_memory_mb(self, dataset: str, bucket: str, floor: int = 1000) -> int:
-        """Memory to declare for parsing one bucket (:data:`MEMORY_PER_MB`)."""
-        return int(max(floor, MEMORY_PER_MB["parse"] * _raw_mb(self.buckets[dataset][bucket])))
+        """Memory to declare for parsing one bucket (:data:`PARSE_MEMORY_PER_MB`)."""
+        return int(max(floor, PARSE_MEMORY_PER_MB * _raw_mb(self.buckets[dataset][bucket])))
 
     def extract_memory_mb(self, dataset: str, floor: int = 2000) -> int:
         """Memory to declare for a dataset's extraction: by the size of its raw files, all
         of them or, for a step that streams its buckets, the largest bucket."""
+        record = BY_NAME[dataset]
         sizes = [_raw_mb(files) for files in self.buckets.get(dataset, {}).values()]
-        size = max(sizes, default=0) if dataset in ONE_BUCKET_AT_A_TIME else sum(sizes)
-        return int(max(floor, MEMORY_PER_MB.get(dataset, 0) * size))
+        size = max(sizes, default=0) if record.one_bucket_at_a_time else sum(sizes)
+        return int(max(floor, record.memory_per_mb * size))
 
     def parsed(self, dataset: str) -> list[str]:
         return [str(self.out / "parsed" / dataset / f"{b}.npz")
