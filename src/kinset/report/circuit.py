@@ -109,8 +109,9 @@ def _ranked_rows(table: pd.DataFrame, module, first: str) -> list[list[str]]:
     order = np.argsort(badness(np.where(np.isfinite(v), v, np.inf), _better(module, first)),
                        kind="stable")
     rows = []
+    records = table.to_dict("records")      # a Series per row cost ~0.3 ms (4,895 pairs: 1.5 s)
     for rank, i in enumerate(order, 1):
-        r = table.iloc[i]
+        r = records[i]
         cells = [e(rank), f'<a href="#set-{e(r["set"])}">{e(r["set"])}</a>']
         for f in module.FIGURES:
             x, ref = r[f], r[f"reference_{f}"]
