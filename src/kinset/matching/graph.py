@@ -141,6 +141,13 @@ def in_some_set(v, tree, devices, k, cap=200_000, first=32):
     return out
 
 
+def adjacency(n, pairs):
+    """The symmetric adjacency matrix (CSR, int8) of ``n`` devices joined by ``pairs``."""
+    i = np.concatenate([pairs[:, 0], pairs[:, 1]])
+    j = np.concatenate([pairs[:, 1], pairs[:, 0]])
+    return coo_matrix((np.ones(len(i), np.int8), (i, j)), shape=(n, n)).tocsr()
+
+
 def component_labels(n, i, j):
     """Connected-component label of each of ``n`` nodes joined by edges (i, j)."""
     g = coo_matrix((np.ones(len(i), np.int8), (i, j)), shape=(n, n))

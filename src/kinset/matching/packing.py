@@ -26,8 +26,10 @@ import sys
 import numpy as np
 import rustworkx as rx
 from scipy.optimize import Bounds, LinearConstraint, milp
-from scipy.sparse import coo_matrix, csc_matrix, csr_matrix
+from scipy.sparse import coo_matrix, csc_matrix
 from scipy.sparse.csgraph import maximum_bipartite_matching
+
+from kinset.matching.graph import adjacency
 
 EXACT_NODE_LIMIT = 5_000
 """Branch-and-bound nodes of HiGHS for a count-maximising packing."""
@@ -71,9 +73,7 @@ def fractional_matching_bound(n, pairs):
     """
     if len(pairs) == 0:
         return 0
-    a = np.concatenate([pairs[:, 0], pairs[:, 1]])
-    b = np.concatenate([pairs[:, 1], pairs[:, 0]])
-    cover = csr_matrix((np.ones(len(a), np.int8), (a, b)), shape=(n, n))
+    cover = adjacency(n, pairs)         # rows: the devices v; columns: their copies v'
     matched = int(np.count_nonzero(maximum_bipartite_matching(cover, perm_type="column") >= 0))
     return matched // 2                 # nu_f = matched / 2
 

@@ -59,11 +59,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.sparse import coo_matrix
 from scipy.spatial import cKDTree
 
-from kinset.matching.graph import (EPSILON, compatibility, component_labels, enumerate_sets,
-                                   in_some_set, is_valid, nearest_compatible, set_cost,
+from kinset.matching.graph import (EPSILON, adjacency, compatibility, component_labels,
+                                   enumerate_sets, in_some_set, is_valid, nearest_compatible, set_cost,
                                    split_components)
 from kinset.matching.heuristics import by_cost, greedy, pack_large, sort_and_group
 from kinset.matching.packing import blossom, fractional_matching_bound, milp_pack
@@ -338,10 +337,10 @@ def _blocks(v, size, turn):
     return label
 
 
-def _rematch(vc, w, pairs, matched, group):
+def _rematch(vc, w, pairs, cost, matched, group):
     """Blossom-match each group of devices again (group -1: none; pairs within the group,
     devices whose partner is outside it left as they are); keep a group's new matching where it pairs
-    more devices, or as many for less cost."""
+    more devices, or as many for less cost. ``cost``: each pair's cost."""
     n = len(vc)
     mate = np.full(n, -1)
     mate[matched[:, 0]], mate[matched[:, 1]] = matched[:, 1], matched[:, 0]
@@ -354,11 +353,11 @@ def _rematch(vc, w, pairs, matched, group):
             continue
         loc = np.full(n, -1)
         loc[devs] = np.arange(len(devs))
-        inside = pairs[ok & (group[pairs[:, 0]] == g)]
-        if len(inside) == 0:
+        rows = ok & (group[pairs[:, 0]] == g)
+        if not rows.any():
             continue
-        cost = np.abs(vc[inside[:, 0]] - vc[inside[:, 1]]) @ w
-        found = devs[np.asarray(blossom(len(devs), loc[inside], cost), np.int64).reshape(-1, 2)]
+        found = devs[np.asarray(blossom(len(devs), loc[pairs[rows]], cost[rows]),
+                                np.int64).reshape(-1, 2)]
         old = matched[(group[matched[:, 0]] == g) & (group[matched[:, 1]] == g)]
         if len(found) > len(old) or (len(found) == len(old) and set_cost(vc, w, found).sum()
                                      < set_cost(vc, w, old).sum()):
@@ -367,7 +366,7 @@ def _rematch(vc, w, pairs, matched, group):
     return np.concatenate([matched[~gone[matched[:, 0]]]] + new)
 
 
-def _repair(vc, w, pairs, matched, count, rounds=REPAIR_ROUNDS):
+def _repair(vc, w, pairs, cost, matched, count, rounds=REPAIR_ROUNDS):
     """Re-match, by blossom, regions around the devices a matching leaves single.
 
     A region is the single devices and every device within ``hops`` compatible pairs of
@@ -375,9 +374,7 @@ def _repair(vc, w, pairs, matched, count, rounds=REPAIR_ROUNDS):
     (:func:`_blocks`) and re-matched by :func:`_rematch`: the matching only improves.
     """
     n = len(vc)
-    g = coo_matrix((np.ones(2 * len(pairs), np.int8),
-                    (np.r_[pairs[:, 0], pairs[:, 1]], np.r_[pairs[:, 1], pairs[:, 0]])),
-                   shape=(n, n)).tocsr()
+    g = adjacency(n, pairs)
     for hops in range(1, 1 + rounds):
         if len(matched) >= count:
             break
@@ -387,7 +384,7 @@ def _repair(vc, w, pairs, matched, count, rounds=REPAIR_ROUNDS):
             region = region | (g @ region > 0)
         group = np.full(n, -1)
         group[region] = _blocks(vc[region], REPAIR_MAX_DEVICES, hops - 1)
-        matched = _rematch(vc, w, pairs, matched, group)
+        matched = _rematch(vc, w, pairs, cost, matched, group)
     return matched
 
 
@@ -462,24 +459,11 @@ class _Run:
         """Pairs in blocks; False (nothing added) when they fall short of the bound on a
         component the whole blossom can still take."""
         n = len(comp)
-        block = _blocks(vc, BLOCK_DEVICES, 0)
-        same = block[pairs[:, 0]] == block[pairs[:, 1]]
-        inner, inner_cost = pairs[same], cost[same]
-        order = np.argsort(block[inner[:, 0]], kind="stable")
-        starts = np.searchsorted(block[inner[order, 0]], np.arange(block.max() + 2))
-        matched = [np.zeros((0, 2), np.int64)]
-        loc = np.empty(n, np.int64)
-        for b in range(block.max() + 1):
-            rows = order[starts[b]:starts[b + 1]]
-            devs = np.flatnonzero(block == b)
-            loc[devs] = np.arange(len(devs))
-            if len(rows):
-                found = blossom(len(devs), loc[inner[rows]], inner_cost[rows])
-                matched.append(devs[np.asarray(found, np.int64).reshape(-1, 2)])
+        none = np.zeros((0, 2), np.int64)
+        matched = _rematch(vc, w, pairs, cost, none, _blocks(vc, BLOCK_DEVICES, 0))
         count = fractional_matching_bound(n, pairs)
-        matched = np.concatenate(matched)
-        matched = _rematch(vc, w, pairs, matched, _blocks(vc, BLOCK_DEVICES, 1))
-        matched = _repair(vc, w, pairs, matched, count)
+        matched = _rematch(vc, w, pairs, cost, matched, _blocks(vc, BLOCK_DEVICES, 1))
+        matched = _repair(vc, w, pairs, cost, matched, count)
         if len(matched) < count and n <= BLOSSOM_MAX_DEVICES:
             return False                # the whole blossom is affordable: exact count
         self.add(comp, polish(vc, w, matched))
