@@ -9,7 +9,8 @@ from snakemake.utils import min_version
 
 from kinset.errors import InputError
 from kinset.registry import NAMES
-from kinset.workflow import BUCKET_PATTERN, check_config, make_plans, stopped, when_nothing_to_do
+from kinset.workflow import (BUCKET_PATTERN, check_config, last_words, make_plans, stopped,
+                             when_nothing_to_do)
 
 min_version("8.0")
 
@@ -55,10 +56,10 @@ rule all:
 # The run's last words: what each application made, or why the run stopped (a failed job's
 # log is also printed where it failed: show-failed-logs in profiles/default).
 onsuccess:
-    print("\n".join(PLAN.summary()), file=sys.stderr)
+    last_words(PLAN)
 
 # A rerun with nothing to do skips onsuccess; it ends on the same words.
-when_nothing_to_do(lambda: print("\n".join(PLAN.summary()), file=sys.stderr))
+when_nothing_to_do(lambda: last_words(PLAN))
 
 onerror:
     print(stopped(log), file=sys.stderr)

@@ -313,6 +313,11 @@ def stopped(logs) -> str:
     return "\n".join(["kinset: the run stopped:"] + [f"  {e}" for e in errors])
 
 
+def last_words(plans) -> None:
+    """Print a finished run's results block (:meth:`Plans.summary`) on the terminal."""
+    print("\n".join(plans.summary()), file=sys.stderr)
+
+
 def when_nothing_to_do(say) -> None:
     """Call ``say()`` once if snakemake finds nothing to do. Such a run returns before its
     ``onsuccess`` hook, so a rerun to see the results would otherwise end on snakemake's
